@@ -1,0 +1,1 @@
+"""crossflock.agents (under construction)."""

@@ -1,0 +1,1 @@
+"""crossflock.compare (under construction)."""

@@ -1,0 +1,1 @@
+"""Scenario files shipped with crossflock (TOML); see README "Scenarios"."""

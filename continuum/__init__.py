@@ -1,0 +1,1 @@
+"""crossflock.continuum (under construction)."""

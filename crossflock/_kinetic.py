@@ -1,0 +1,160 @@
+"""Bertin-Droz-Gregoire kinetic coefficients mapped onto the crossflock equations.
+
+BDG derive, from a Boltzmann equation for binary alignment collisions, the hydrodynamic
+equation (units v0 = 1, 2 d0 v0 = 1)::
+
+    d_t w + gamma (w.grad) w = -1/2 grad(rho - kappa w^2) + (mu - xi w^2) w
+                               + nu lap(w) - kappa (div w) w
+
+with the coefficients of :func:`bdg_dimensionless`. crossflock's equation (GUIDE
+section 3) has the same terms under other names; the physical units of ``[model]``
+follow from the length unit L* = 2 R (so that d0 = R) and the time unit T* = L* / v0:
+rho~ = L*^2 rho, w~ = L*^2 w, t~ = t / T*, x~ = x / L*.
+
+Mapping of the alignment model onto BDG (an approximation, stated here and in the docs):
+
+* The collision noise s.d. ``sigma`` is the s.d. of the wrapped Gaussian that has the same
+  first circular moment as the particle noise: sin(pi eta) / (pi eta) for angular noise,
+  exp(-(pi eta)^2 / 2) for the "gaussian" kind. Vectorial noise uses the angular formula
+  (its effective angular spread depends on the neighbour count; this is the crudest part).
+* Each particle is kicked by the noise once per time step whatever its neighbours do, so
+  the self-diffusion ("tumble") rate is lambda = 1 / agents.dt with sigma0 = sigma unless
+  ``continuum.kinetic_lambda`` sets it.
+* BDG is a dilute, binary-collision theory; Vicsek particles at density ~ 1 per R^2 have
+  several neighbours at once, so the coefficients are indicative, not quantitative.
+
+References
+----------
+.. [1] E. Bertin, M. Droz, G. Gregoire, Phys. Rev. E 74, 022101 (2006).
+.. [2] E. Bertin, M. Droz, G. Gregoire, J. Phys. A 42, 445001 (2009).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+__all__ = [
+    "noise_sigma",
+    "bdg_dimensionless",
+    "units",
+    "tumble_rate",
+    "kinetic_coefficients",
+    "kinetic_local",
+    "bdg_onset_sigma",
+]
+
+
+def bdg_onset_sigma() -> float:
+    """Noise s.d. above which no density orders: exp(-sigma_t^2/2) = 2/3 (BDG 2006)."""
+    return math.sqrt(2.0 * math.log(1.5))
+
+
+def noise_sigma(noise: float, noise_kind: str) -> float:
+    """Equivalent wrapped-Gaussian s.d. of the particle noise (first circular moment).
+
+    Returns ``inf`` when the first moment vanishes (eta = 1 angular noise).
+    """
+    x = math.pi * noise
+    if noise_kind == "gaussian":
+        return x
+    moment = 1.0 if x == 0 else math.sin(x) / x
+    if moment <= 0:
+        return math.inf
+    return math.sqrt(-2.0 * math.log(moment))
+
+
+def bdg_dimensionless(rho, sigma, sigma0, lam):
+    """BDG coefficients in BDG units (v0 = 1, 2 d0 v0 = 1).
+
+    Parameters
+    ----------
+    rho : float or ndarray
+        Density in BDG units.
+    sigma, sigma0 : float
+        S.d. of the collision noise and of the self-diffusion noise.
+    lam : float
+        Self-diffusion (tumble) rate in BDG units.
+
+    Returns
+    -------
+    dict
+        nu, gamma, kappa, mu, xi (arrays shaped like ``rho``).
+    """
+    rho = np.asarray(rho, dtype=float)
+    e2 = math.exp(-2.0 * sigma**2)
+    eh = math.exp(-0.5 * sigma**2)
+    nu = 0.25 / (lam * (1.0 - math.exp(-2.0 * sigma0**2))
+                 + (4.0 / math.pi) * rho * (14.0 / 15.0 + (2.0 / 3.0) * e2))
+    gamma = (8.0 * nu / math.pi) * (16.0 / 15.0 + 2.0 * e2 - eh)
+    kappa = (8.0 * nu / math.pi) * (4.0 / 15.0 + 2.0 * e2 + eh)
+    mu = (4.0 / math.pi) * rho * (eh - 2.0 / 3.0) - lam * (1.0 - math.exp(-0.5 * sigma0**2))
+    xi = (64.0 * nu / math.pi**2) * (eh - 0.4) * (1.0 / 3.0 + e2)
+    return {"nu": nu, "gamma": gamma, "kappa": kappa, "mu": mu, "xi": xi}
+
+
+def units(model) -> tuple[float, float]:
+    """(L*, T*): BDG length and time units in the physical units of ``[model]``."""
+    length = 2.0 * model.radius
+    return length, length / model.speed
+
+
+def tumble_rate(cfg) -> float:
+    """Self-diffusion rate lambda in physical 1/time."""
+    lam = cfg.continuum.kinetic_lambda
+    return 1.0 / cfg.agents.dt if lam == "auto" else float(lam)
+
+
+def kinetic_local(cfg, rho):
+    """Kinetic coefficients evaluated at the local density ``rho`` (physical units).
+
+    Parameters
+    ----------
+    cfg : Config
+    rho : float or (ny, nx) ndarray
+
+    Returns
+    -------
+    dict
+        ``alpha`` (= alpha(rho), the full local growth rate), ``beta``, ``D_T``,
+        ``lambda1``, ``lambda2``, ``lambda3`` shaped like ``rho``; ``pressure`` (tuple),
+        ``D_B``, ``D_2``, ``D_rho``, ``noise_strength`` (floats).
+    """
+    m = cfg.model
+    length, tau = units(m)
+    sigma = noise_sigma(m.noise, m.noise_kind)
+    lam = tumble_rate(cfg) * tau
+    c = bdg_dimensionless(np.asarray(rho, dtype=float) * length**2, sigma, sigma, lam)
+    l2 = length**2
+    return {
+        "alpha": c["mu"] / tau,
+        "beta": c["xi"] * l2 * l2 / tau,
+        "D_T": c["nu"] * l2 / tau,
+        "lambda1": c["gamma"] * l2 * m.speed,
+        "lambda2": c["kappa"] * l2 * m.speed,
+        "lambda3": -0.5 * c["kappa"] * l2 * m.speed,
+        "pressure": (0.5 * m.speed,),
+        "D_B": 0.0,
+        "D_2": 0.0,
+        "D_rho": 0.0,
+        "noise_strength": 0.0,
+    }
+
+
+def kinetic_coefficients(cfg) -> dict:
+    """Kinetic coefficients at the mean density, in the table form of GUIDE section 3.
+
+    ``alpha_rho`` is the exact slope d alpha / d rho (mu is linear in rho); the
+    coefficients that depend on rho through nu are given at rho0.
+    """
+    m = cfg.model
+    length, tau = units(m)
+    sigma = noise_sigma(m.noise, m.noise_kind)
+    at = kinetic_local(cfg, m.density)
+    out = {k: (float(v) if not isinstance(v, tuple) else list(v)) for k, v in at.items()}
+    eh = math.exp(-0.5 * sigma**2)
+    out["alpha_rho"] = (4.0 / math.pi) * (eh - 2.0 / 3.0) * length**2 / tau
+    order = ["alpha", "alpha_rho", "beta", "pressure", "D_T", "D_B", "D_2", "lambda1",
+             "lambda2", "lambda3", "D_rho", "noise_strength"]
+    return {k: out[k] for k in order}
