@@ -132,7 +132,8 @@ def main(argv=None) -> int:
         handler = getattr(_commands, "cmd_" + args.command)
         code = handler(args)
     except CrossflockError as exc:
-        print(f"crossflock: error: {exc}", file=sys.stderr)
+        message = " ".join(str(exc).split("\n")).replace("\r", " ")
+        print(f"crossflock: error: {message}", file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
         print("crossflock: interrupted; finished files are complete, nothing half-written "

@@ -6,7 +6,7 @@ import sys
 from pathlib import Path
 
 from ._config import load_config
-from ._errors import CheckFailed, InputError, NotBuiltError, NumericalError
+from ._errors import CheckFailed, InputError, NumericalError
 from ._io import check_writable, read_dataset, write_dataset
 
 __all__ = [
@@ -122,15 +122,89 @@ def cmd_demo(args) -> int:
 
 
 def cmd_calibrate(args) -> int:
-    raise NotBuiltError("`calibrate` (coefficient fitting) is not built yet in this version")
+    from ._io import atomic_write_text
+    from ._pipeline import analysis
+
+    calibrate = analysis("calibrate")
+    output = check_writable(args.output)
+    ds = read_dataset(args.run_file, kind=("particles", "fields"))
+    if ds.attrs["crossflock_kind"] == "particles":
+        if "x" not in ds:
+            raise InputError(f"run file {args.run_file!r} has no particle snapshots; re-run "
+                             "it with agents.snapshots = true to calibrate on it")
+        ds = analysis("coarse_grain")(ds)
+    result = calibrate(ds)
+    atomic_write_text(output, result.to_toml())
+    summary = getattr(result, "summary", None)
+    if callable(summary):
+        _out(summary())
+    _out(f"wrote {output}")
+    return 0
 
 
 def cmd_sweep(args) -> int:
-    raise NotBuiltError("`sweep` (dask phase sweeps) is not built yet in this version")
+    from ._cli import _ensure_dir
+    from ._sweep import load_sweep
+    from ._sweep_run import run_sweep
+
+    sweep = load_sweep(args.sweep_file)
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers must be a positive integer (got {args.workers})")
+    outdir = _ensure_dir(args.output)
+    summary = run_sweep(sweep, outdir, workers=args.workers, scheduler=args.scheduler,
+                        progress=args.progress)
+    _out(summary.line())
+    _out(f"wrote {summary.output}")
+    return 1 if summary.failed else 0
 
 
 def cmd_check(args) -> int:
-    raise NotBuiltError("`check` (regression gate) is not built yet in this version")
+    from ._check import (
+        check_reference_usable,
+        format_table,
+        gate,
+        reference_dataset,
+        run_ensemble,
+    )
+    from ._io import dataset_config
+
+    cfg = _load(args)
+    ref_path = Path(args.reference)
+    engines = cfg.check.engines
+    n = cfg.check.ensemble
+
+    def log(msg):
+        print(f"crossflock: {msg}", file=sys.stderr, flush=True)
+
+    if args.update:
+        check_writable(ref_path)
+        values, seeds = run_ensemble(cfg, 0, n, engines, progress=args.progress, log=log)
+        write_dataset(reference_dataset(cfg, values, seeds, engines), ref_path)
+        _out(f"wrote reference {ref_path} ({n} seeds, engines {', '.join(engines)})")
+        return 0
+    if not ref_path.exists():
+        raise InputError(f"reference {str(ref_path)!r} does not exist; create it with --update")
+    ref = read_dataset(ref_path, kind="reference")
+    ref_cfg = dataset_config(ref)
+    problems = check_reference_usable(ref, cfg, ref_cfg, args.allow_config_change, ref_path)
+    for p in problems:
+        log(f"note: {p} (compared anyway)")
+    ref_engines = tuple(str(ref.attrs.get("engines", "")).split(","))
+    if set(engines) - set(ref_engines):
+        raise InputError(f"reference {str(ref_path)!r} holds engines {', '.join(ref_engines)}; "
+                         f"`check.engines` asks for {', '.join(engines)}")
+    reference = {k: ref[k].values for k in ref.data_vars}
+    first = int(ref.sizes["member"])
+    current, _ = run_ensemble(cfg, first, n, engines, progress=args.progress, log=log)
+    rows = gate(reference, current, cfg.check.false_alarm)
+    _out(format_table(rows))
+    failed = [r.name for r in rows if not r.passed]
+    if failed:
+        _out(f"check: REGRESSION in {', '.join(failed)}")
+        return 1
+    _out(f"check: pass ({len(rows)} observables, family-wise false-alarm rate "
+         f"{cfg.check.false_alarm:g})")
+    return 0
 
 
 # re-exported for commands that are added later without touching the CLI module

@@ -332,9 +332,24 @@ class CompareConfig:
     tolerance: Tolerances = field(None, Tolerances, "per-observable tolerances")
 
 
+def _engine_list(key, value):
+    if (not isinstance(value, (list, tuple)) or not value
+            or any(v not in ("agents", "continuum") for v in value)
+            or len(set(value)) != len(value)):
+        raise ConfigError(
+            f'`{key}` must be a non-empty list drawn from "agents", "continuum" '
+            f"(got {fmt_value(value)})"
+        )
+    return tuple(value)
+
+
 @dataclass(frozen=True, kw_only=True)
 class CheckConfig:
     """Regression gate settings."""
+
+    engines: tuple[str, ...] = field(
+        ("agents",), _engine_list, 'engines whose observables are gated ("agents", "continuum")'
+    )
 
     ensemble: int = field(6, "int", "seeds per ensemble", lambda v: v >= 2,
                           "must be at least 2")
@@ -380,6 +395,18 @@ def _check_consistency(cfg: Config) -> None:
         raise ConfigError(
             f"`continuum.grid` must resolve the interaction radius: spacing "
             f"{max(dx, dy):g} must be <= model.radius = {r:g} (got {list(cfg.continuum.grid)})"
+        )
+    if max(nx, ny) > 16384:
+        raise ConfigError(
+            f"`continuum.grid` must have at most 16384 points per side (got {[nx, ny]})"
+        )
+    from ._geometry import geometry_from_config
+
+    n_particles = cfg.model.density * geometry_from_config(cfg.domain).fluid_area()
+    if not 1 <= n_particles <= 2e8:
+        raise ConfigError(
+            f"`model.density` times the fluid area gives {n_particles:.3g} particles; "
+            "need between 1 and 2e8"
         )
     if min(nx, ny) < 8:
         raise ConfigError(

@@ -17,7 +17,12 @@ from typing import Any
 
 from ._errors import ConfigError
 
-__all__ = ["field", "build", "to_mapping", "describe", "fmt_value"]
+__all__ = ["field", "build", "to_mapping", "describe", "fmt_value", "safe_key",
+           "unknown_key_error", "MAX_MAGNITUDE"]
+
+# No physical quantity of a scenario needs more; larger numbers are typos or fuzz and
+# would overflow the stability estimates.
+MAX_MAGNITUDE = 1e9
 
 
 def fmt_value(value: Any) -> str:
@@ -64,12 +69,21 @@ def _coerce(key: str, kind, value):
         value = float(value)
         if not math.isfinite(value):
             raise ConfigError(f"`{key}` must be finite (got {fmt_value(value)})")
+        if abs(value) > MAX_MAGNITUDE:
+            raise ConfigError(
+                f"`{key}` must be at most {MAX_MAGNITUDE:g} in magnitude (got {fmt_value(value)})"
+            )
         return value
     if kind == "int":
         if isinstance(value, bool) or not isinstance(value, int):
             if isinstance(value, float) and value.is_integer():
-                return int(value)
-            raise ConfigError(f"`{key}` must be an integer (got {fmt_value(value)})")
+                value = int(value)
+            else:
+                raise ConfigError(f"`{key}` must be an integer (got {fmt_value(value)})")
+        if abs(value) > MAX_MAGNITUDE:
+            raise ConfigError(
+                f"`{key}` must be at most {MAX_MAGNITUDE:g} in magnitude (got {fmt_value(value)})"
+            )
         return value
     if kind == "bool":
         if not isinstance(value, bool):
@@ -105,9 +119,16 @@ def _coerce(key: str, kind, value):
     raise TypeError(f"unknown kind {kind!r}")  # pragma: no cover - programming error
 
 
+def safe_key(name: str) -> str:
+    """A key as it can be shown on one line (control characters escaped)."""
+    name = str(name)
+    return name if name.isprintable() and "`" not in name else repr(name)
+
+
 def unknown_key_error(key: str, name: str, allowed) -> ConfigError:
     """``ConfigError`` for an unknown key, with a close-match hint."""
-    hint = difflib.get_close_matches(name, list(allowed), n=1, cutoff=0.5)
+    hint = difflib.get_close_matches(str(name), list(allowed), n=1, cutoff=0.5)
+    name = safe_key(name)
     full = f"{key}.{name}" if key else name
     msg = f"unknown key `{full}`"
     if hint:
