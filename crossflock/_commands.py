@@ -73,9 +73,9 @@ def cmd_run(args) -> int:
 def cmd_analyze(args) -> int:
     from ._pipeline import analysis
 
-    observe = analysis("observe")
     output = check_writable(args.output)
     ds = read_dataset(args.run_file, kind=("particles", "fields"))
+    observe = analysis("observe")
     obs = observe(ds)
     write_dataset(obs, output)
     _out(f"wrote {output}")
@@ -125,9 +125,9 @@ def cmd_calibrate(args) -> int:
     from ._io import atomic_write_text
     from ._pipeline import analysis
 
-    calibrate = analysis("calibrate")
     output = check_writable(args.output)
     ds = read_dataset(args.run_file, kind=("particles", "fields"))
+    calibrate = analysis("calibrate")
     if ds.attrs["crossflock_kind"] == "particles":
         if "x" not in ds:
             raise InputError(f"run file {args.run_file!r} has no particle snapshots; re-run "

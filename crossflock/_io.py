@@ -36,6 +36,12 @@ def check_writable(path) -> Path:
     return path
 
 
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_path(path, suffix=".tmp"):
     """Yield a temporary path next to ``path``; rename it to ``path`` on success."""
@@ -44,6 +50,7 @@ def atomic_path(path, suffix=".tmp"):
     os.close(fd)
     try:
         yield Path(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; outputs are ordinary files
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(OSError):

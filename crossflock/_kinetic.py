@@ -9,7 +9,11 @@ equation (units v0 = 1, 2 d0 v0 = 1)::
 with the coefficients of :func:`bdg_dimensionless`. crossflock's equation (GUIDE
 section 3) has the same terms under other names; the physical units of ``[model]``
 follow from the length unit L* = 2 R (so that d0 = R) and the time unit T* = L* / v0:
-rho~ = L*^2 rho, w~ = L*^2 w, t~ = t / T*, x~ = x / L*.
+rho~ = L*^2 rho, w~ = L*^2 w, t~ = t / T*, x~ = x / L*. Substituting into the BDG
+equation and dividing by T* L*^2 gives (checked term by term): alpha = mu / T*,
+beta = xi L*^4 / T*, D_T = nu L*^2 / T*, lambda1 = gamma L*^2 v0, lambda2 = kappa L*^2 v0,
+lambda3 = -kappa L*^2 v0 / 2, P(rho) = (v0 / 2)(rho - rho0) (crossflock's continuity
+equation carries the factor v0: d_t rho = -v0 div w), and lambda~ = lambda T*.
 
 Mapping of the alignment model onto BDG (an approximation, stated here and in the docs):
 
@@ -20,6 +24,13 @@ Mapping of the alignment model onto BDG (an approximation, stated here and in th
 * Each particle is kicked by the noise once per time step whatever its neighbours do, so
   the self-diffusion ("tumble") rate is lambda = 1 / agents.dt with sigma0 = sigma unless
   ``continuum.kinetic_lambda`` sets it.
+* BDG's pressure-like term is -1/2 grad(rho - kappa w^2) with kappa = kappa(rho);
+  crossflock's lambda3 grad|w|^2 with lambda3 = -kappa/2 evaluated locally drops the
+  (|w|^2 / 2) grad kappa part (second order in gradients times w^2).
+* Far from the onset (rho >> rho_t, small noise) the truncated BDG equations have a
+  short-wavelength instability of the homogeneous ordered state (growth rate ~0.3 at
+  k ~ 8 / R for the default [model]); continuum runs there need D_T-resolving grids or
+  diverge (exit 3). This is a property of the truncated equations, not of the particles.
 * BDG is a dilute, binary-collision theory; Vicsek particles at density ~ 1 per R^2 have
   several neighbours at once, so the coefficients are indicative, not quantitative.
 

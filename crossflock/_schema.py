@@ -23,6 +23,7 @@ __all__ = ["field", "build", "to_mapping", "describe", "fmt_value", "safe_key",
 # No physical quantity of a scenario needs more; larger numbers are typos or fuzz and
 # would overflow the stability estimates.
 MAX_MAGNITUDE = 1e9
+MAX_INT = 2**63 - 1
 
 
 def fmt_value(value: Any) -> str:
@@ -80,10 +81,8 @@ def _coerce(key: str, kind, value):
                 value = int(value)
             else:
                 raise ConfigError(f"`{key}` must be an integer (got {fmt_value(value)})")
-        if abs(value) > MAX_MAGNITUDE:
-            raise ConfigError(
-                f"`{key}` must be at most {MAX_MAGNITUDE:g} in magnitude (got {fmt_value(value)})"
-            )
+        if abs(value) > MAX_INT:
+            raise ConfigError(f"`{key}` must fit in 64 bits (got {fmt_value(value)})")
         return value
     if kind == "bool":
         if not isinstance(value, bool):

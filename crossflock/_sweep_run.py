@@ -132,6 +132,9 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
     start = time.perf_counter()
     outdir = Path(outdir)
     (outdir / "points").mkdir(parents=True, exist_ok=True)
+    for stale in (outdir / "points").glob(".*.nc.*"):
+        # temporary files of tasks killed mid-write (never under a final name)
+        stale.unlink(missing_ok=True)
     tasks = sweep.tasks()
     summary = SweepSummary()
     todo = []

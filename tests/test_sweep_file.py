@@ -78,8 +78,8 @@ dt = 0.025
     (f'base = "{CONFIGS / "default.toml"}"\n[axes]\n"model.noise" = {{start = 0.1}}\n',
      "range needs start, stop and num"),
     (f'base = "{CONFIGS / "default.toml"}"\n[axes]\n', "must name at least one config key"),
-    (f'base = "{CONFIGS / "default.toml"}"\n[resources]\nthreads = 0\n[axes]\n"model.noise" = [0.1]\n',
-     r"`resources.threads` must be an integer >= 1"),
+    (f'base = "{CONFIGS / "default.toml"}"\n[resources]\nthreads = 0\n'
+     '[axes]\n"model.noise" = [0.1]\n', r"`resources.threads` must be an integer >= 1"),
     ('base = "nowhere.toml"\n[axes]\n"model.noise" = [0.1]\n', "does not exist"),
     ("[axes\n", "is not valid TOML"),
 ])

@@ -1,0 +1,144 @@
+"""Speed of one 512 x 512 continuum step: finite differences and spectral vs numpy.
+
+The reference is a plain numpy implementation (np.roll central differences, forward
+Euler) of the minimal equations d_t rho = -v0 div w,
+d_t w = (alpha - beta |w|^2) w - P1 grad rho + D_T lap w, run in the same process on the
+same grid and dt. Figures: grid-point-updates per second (median of repeats), ratios,
+share of the spectral step spent in FFTs, peak RSS.
+
+Usage: python benchmarks/bench_continuum.py [--n 512] [--repeats 7] [--steps 10]
+"""
+
+from __future__ import annotations
+
+import argparse
+import resource
+import statistics
+import time
+
+import numba
+import numpy as np
+
+import crossflock as cf
+from crossflock.continuum import FiniteDifferenceSolver, SpectralSolver
+from crossflock.continuum import _spectral as spectral_module
+
+COEFFS = {"alpha": 1.0, "beta": 1.0, "pressure": [0.5], "D_T": 0.1}
+DT = 0.05
+
+
+def config(n, method):
+    return cf.load_config({
+        "domain": {"size": [float(n), float(n)]},
+        "model": {"density": 1.0, "speed": 0.5, "radius": 1.0},
+        "run": {"duration": 1.0, "sample_every": 1.0},
+        "continuum": {"grid": [n, n], "dt": DT, "method": method, "coefficients": COEFFS},
+    })
+
+
+class NumpyReference:
+    """Forward-Euler np.roll implementation of the minimal equations (periodic)."""
+
+    def __init__(self, rho, wx, wy, dx, v0):
+        self.rho, self.wx, self.wy = rho.copy(), wx.copy(), wy.copy()
+        self.dx, self.v0 = dx, v0
+
+    def _ddx(self, f):
+        return (np.roll(f, -1, 1) - np.roll(f, 1, 1)) / (2 * self.dx)
+
+    def _ddy(self, f):
+        return (np.roll(f, -1, 0) - np.roll(f, 1, 0)) / (2 * self.dx)
+
+    def _lap(self, f):
+        return (np.roll(f, 1, 0) + np.roll(f, -1, 0) + np.roll(f, 1, 1)
+                + np.roll(f, -1, 1) - 4 * f) / self.dx**2
+
+    def step(self):
+        rho, wx, wy = self.rho, self.wx, self.wy
+        s = COEFFS["alpha"] - COEFFS["beta"] * (wx * wx + wy * wy)
+        p1 = COEFFS["pressure"][0]
+        drho = -self.v0 * (self._ddx(wx) + self._ddy(wy))
+        dwx = s * wx - p1 * self._ddx(rho) + COEFFS["D_T"] * self._lap(wx)
+        dwy = s * wy - p1 * self._ddy(rho) + COEFFS["D_T"] * self._lap(wy)
+        self.rho = rho + DT * drho
+        self.wx = wx + DT * dwx
+        self.wy = wy + DT * dwy
+
+
+def timed(step, steps, repeats):
+    step()  # warm-up (compilation, caches)
+    times = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        for _ in range(steps):
+            step()
+        times.append((time.perf_counter() - t0) / steps)
+    return statistics.median(times)
+
+
+def fft_share(solver, steps, repeats):
+    """Median fraction of a spectral step spent inside scipy.fft calls."""
+    spent = [0.0]
+    orig_f, orig_i = spectral_module._rfft2, spectral_module._irfft2
+
+    def rfft2(a, workers):
+        t0 = time.perf_counter()
+        out = orig_f(a, workers)
+        spent[0] += time.perf_counter() - t0
+        return out
+
+    def irfft2(a, shape, workers):
+        t0 = time.perf_counter()
+        out = orig_i(a, shape, workers)
+        spent[0] += time.perf_counter() - t0
+        return out
+
+    spectral_module._rfft2, spectral_module._irfft2 = rfft2, irfft2
+    shares = []
+    try:
+        for _ in range(repeats):
+            spent[0] = 0.0
+            t0 = time.perf_counter()
+            for _ in range(steps):
+                solver.step()
+            shares.append(spent[0] / (time.perf_counter() - t0))
+    finally:
+        spectral_module._rfft2, spectral_module._irfft2 = orig_f, orig_i
+    return statistics.median(shares)
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--n", type=int, default=512)
+    ap.add_argument("--repeats", type=int, default=7)
+    ap.add_argument("--steps", type=int, default=10)
+    ap.add_argument("--threads", type=int, nargs="*", default=None,
+                    help="numba threads / FFT workers to try (default: 1 and all)")
+    args = ap.parse_args(argv)
+    n = args.n
+    points = n * n
+    threads = args.threads or sorted({1, numba.config.NUMBA_NUM_THREADS})
+    for nthreads in threads:
+        numba.set_num_threads(nthreads)
+        fd = FiniteDifferenceSolver(config(n, "finite_difference"), workers=nthreads)
+        sp = SpectralSolver(config(n, "spectral"), workers=nthreads)
+        rho, wx, wy = fd.fields()
+        ref = NumpyReference(rho, wx, wy, fd.dx, 0.5)
+        t_ref = timed(ref.step, args.steps, args.repeats)
+        t_fd = timed(fd.step, args.steps, args.repeats)
+        t_sp = timed(sp.step, args.steps, args.repeats)
+        share = fft_share(sp, args.steps, args.repeats)
+        print(f"grid {n}x{n}, dt {DT}, numba threads {nthreads}, FFT workers "
+              f"{sp.workers}, medians of {args.repeats} x {args.steps} steps")
+        for name, t in (("numpy np.roll reference (Euler)", t_ref),
+                        ("finite_difference (SBDF2)", t_fd), ("spectral (SBDF2)", t_sp)):
+            print(f"  {name:34s} {t * 1e3:9.3f} ms/step  {points / t:12.4g} point-updates/s")
+        print(f"  ratio finite_difference / numpy: {t_ref / t_fd:.2f}x (target >= 20x)")
+        print(f"  ratio spectral / numpy:          {t_ref / t_sp:.2f}x")
+        print(f"  spectral step time in FFTs:      {100 * share:.1f}% (target >= 60%)")
+    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    print(f"peak RSS: {rss:.1f} MiB")
+
+
+if __name__ == "__main__":
+    main()

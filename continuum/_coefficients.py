@@ -1,0 +1,79 @@
+"""Coefficients of the continuum equations as the solvers consume them.
+
+Two forms (GUIDE section 3): a table, where only alpha depends on rho
+(``alpha(rho) = alpha + alpha_rho (rho - rho0)``), and ``"kinetic"``, where alpha, beta,
+D_T and lambda1-3 are the Bertin-Droz-Gregoire coefficients evaluated at the local density
+every time the right-hand side is evaluated (:func:`crossflock._kinetic.kinetic_local`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .._kinetic import kinetic_local
+
+__all__ = ["CoefficientModel", "SCALARS", "LOCALS"]
+
+# Layout of the scalar vector handed to the compiled kernels.
+SCALARS = ("alpha", "alpha_rho", "beta", "D_T", "lambda1", "lambda2", "lambda3", "D_B",
+           "D_2", "D_rho", "v0", "rho0")
+# Layout of the local (per-cell) coefficient stack in kinetic mode.
+LOCALS = ("alpha", "beta", "D_T", "lambda1", "lambda2", "lambda3")
+
+
+class CoefficientModel:
+    """Coefficients of one config.
+
+    Attributes
+    ----------
+    kinetic : bool
+        True when the coefficients depend on the local density.
+    scalars : (12,) float64 ndarray
+        Values in the order of :data:`SCALARS` (kinetic ones at rho0).
+    pressure : (K,) float64 ndarray
+        Pressure polynomial coefficients.
+    noise_strength : float
+    """
+
+    def __init__(self, cfg):
+        self._cfg = cfg
+        self.rho0 = float(cfg.model.density)
+        self.v0 = float(cfg.model.speed)
+        coef = cfg.continuum.coefficients
+        self.kinetic = coef == "kinetic"
+        if self.kinetic:
+            ref = kinetic_local(cfg, self.rho0)
+            ref = {k: (float(v) if not isinstance(v, tuple) else v) for k, v in ref.items()}
+            ref["alpha_rho"] = 0.0  # carried by the local evaluation instead
+        else:
+            ref = {name: getattr(coef, name) for name in coef.__dataclass_fields__}
+        self.reference = ref
+        vals = dict(ref, v0=self.v0, rho0=self.rho0)
+        self.scalars = np.array([float(vals[k]) for k in SCALARS], dtype=np.float64)
+        self.pressure = np.array(ref["pressure"], dtype=np.float64).reshape(-1)
+        self.noise_strength = float(ref["noise_strength"])
+        self._dummy = np.zeros((len(LOCALS), 1, 1))
+
+    def get(self, name: str) -> float:
+        """Scalar coefficient ``name`` (at rho0 in kinetic mode)."""
+        return float(self.scalars[SCALARS.index(name)])
+
+    def local(self, rho: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        """Per-cell coefficients ``(6, ny, nx)`` (order :data:`LOCALS`) in kinetic mode.
+
+        In table mode returns a ``(6, 1, 1)`` placeholder the kernels ignore.
+        """
+        if not self.kinetic:
+            return self._dummy
+        c = kinetic_local(self._cfg, np.maximum(rho, 0.0))
+        if out is None:
+            out = np.empty((len(LOCALS),) + rho.shape)
+        for i, name in enumerate(LOCALS):
+            out[i] = c[name]
+        return out
+
+    def alpha_at(self, rho):
+        """alpha(rho) (the full local growth rate)."""
+        if self.kinetic:
+            return kinetic_local(self._cfg, rho)["alpha"]
+        return self.get("alpha") + self.get("alpha_rho") * (np.asarray(rho) - self.rho0)
