@@ -7,6 +7,7 @@ documented in the private modules' docstrings.
 """
 
 from ._bands import detect_band
+from ._calibrate import CalibrationResult, CalibrationWarning, calibrate
 from ._coarse import cell_counts, coarse_grain, deposit, smooth
 from ._fluctuations import fit_exponent, gnf_box_sizes, gnf_exponent, number_fluctuations
 from ._mismatch import compare, verdict, verdict_table
@@ -30,6 +31,9 @@ from ._structure import (
 )
 
 __all__ = [
+    "calibrate",
+    "CalibrationResult",
+    "CalibrationWarning",
     "coarse_grain",
     "observe",
     "compare",

@@ -25,7 +25,8 @@ def _particles(cfg, snapshots=True):
 def test_config_round_trip_through_a_run_file(tmp_path):
     cfg = load_config(small_mapping(), overrides={
         "domain.obstacles": [{"center": [8.0, 8.0], "radius": 2.0}],
-        "continuum.coefficients": {"alpha": 0.3, "pressure": [0.5, 0.2]}})
+        "continuum.coefficients": {"alpha": 0.3, "pressure": [0.5, 0.2]},
+        "continuum.dt": 0.01})
     path = write_dataset(_particles(cfg), tmp_path / "run.nc")
     back = dataset_config(read_dataset(path))
     assert back == cfg
