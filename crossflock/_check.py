@@ -1,8 +1,9 @@
 """Statistical regression gate (``crossflock check``).
 
 An ensemble of independent seeds is run and each gated observable's ensemble is compared
-with the reference ensemble by Welch's unequal-variance t-test. The family-wise false-alarm
-rate ``check.false_alarm`` (default 1e-3) is split over the K observables tested
+with the reference ensemble by Welch's unequal-variance t-test (observables defined only
+in some members, such as the speed of a band, by Fisher's exact test on how often they
+are defined). The family-wise false-alarm rate ``check.false_alarm`` (default 1e-3) is split over the K observables tested
 (Bonferroni), so a correct model fails a check less often than ``false_alarm`` when the
 per-seed observables are close to normal (the t-test's assumption; means over long
 stationary runs are, by the central limit theorem).
@@ -14,6 +15,7 @@ staying deterministic from run to run.
 References
 ----------
 .. [1] B. L. Welch, Biometrika 34, 28 (1947): the unequal-variance t-test.
+.. [2] R. A. Fisher, J. R. Stat. Soc. 85, 87 (1922): the exact test of a 2 x 2 table.
 """
 
 from __future__ import annotations
@@ -92,23 +94,27 @@ def gate(reference: dict, current: dict, false_alarm: float) -> list[GateRow]:
         fa, fb = np.isfinite(a), np.isfinite(b)
         if not fa.any() and not fb.any():
             continue  # undefined in both (e.g. no bands): nothing to compare
-        if fa.any() != fb.any():
-            rows.append(GateRow(name, float(np.nanmean(a)) if fa.any() else math.nan,
-                                math.nan, float(np.nanmean(b)) if fb.any() else math.nan,
-                                math.nan, math.nan, 0.0, math.nan, False,
-                                "defined in one ensemble only"))
-            continue
-        if fa.sum() < 2 or fb.sum() < 2:
-            continue  # defined in too few members to estimate a spread: not tested
-        tested.append((name, a[fa], b[fb]))
-    k = max(len(tested) + len(rows), 1)
+        if fa.all() and fb.all():
+            tested.append((name, "welch", a, b))
+        elif fa.sum() >= 2 and fb.sum() >= 2 and fa.mean() == fb.mean():
+            tested.append((name, "welch", a[fa], b[fb]))
+        else:
+            # conditional observables (e.g. band speed, defined only when a band forms):
+            # whether they are defined is itself tested, with Fisher's exact test
+            tested.append((name, "fisher", fa, fb))
+    k = max(len(tested), 1)
     threshold = false_alarm / k
-    for row in rows:
-        row.threshold = threshold
-    for name, a, b in tested:
-        t, p = _welch(a, b)
-        rows.append(GateRow(name, float(a.mean()), float(a.std(ddof=1)), float(b.mean()),
-                            float(b.std(ddof=1)), t, p, threshold, p >= threshold))
+    for name, kind, a, b in tested:
+        if kind == "welch":
+            t, p = _welch(a, b)
+            rows.append(GateRow(name, float(a.mean()), float(a.std(ddof=1)), float(b.mean()),
+                                float(b.std(ddof=1)), t, p, threshold, p >= threshold))
+        else:
+            table = [[int(a.sum()), int((~a).sum())], [int(b.sum()), int((~b).sum())]]
+            p = float(stats.fisher_exact(table).pvalue)
+            rows.append(GateRow(name, float(a.mean()), math.nan, float(b.mean()), math.nan,
+                                math.nan, p, threshold, p >= threshold,
+                                "fraction of members where defined"))
     return rows
 
 

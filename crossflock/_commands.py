@@ -65,6 +65,11 @@ def cmd_run(args) -> int:
     except NumericalError as exc:
         _save_last_good(exc, output)
         raise
+    except KeyboardInterrupt:
+        if args.checkpoint and Path(args.checkpoint).exists():
+            print(f"crossflock: checkpoint {args.checkpoint} is complete; continue with "
+                  f"`crossflock run ... --resume {args.checkpoint}`", file=sys.stderr)
+        raise
     write_dataset(ds, output)
     _out(f"wrote {output}")
     return 0

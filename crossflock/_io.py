@@ -31,6 +31,8 @@ def check_writable(path) -> Path:
         raise InputError(f"output {str(path)!r} is a directory; give a file name")
     if not parent.exists():
         raise InputError(f"output folder {str(parent)!r} does not exist")
+    if not parent.is_dir():
+        raise InputError(f"output folder {str(parent)!r} is not a directory")
     if not os.access(parent, os.W_OK):
         raise InputError(f"output folder {str(parent)!r} is not writable")
     return path

@@ -49,7 +49,15 @@ def test_deterministic_observable_and_undefined_values():
     rows = {r.name: r for r in gate(ref, now, 1e-3)}
     assert rows["a"].passed and rows["a"].p == 1.0
     assert "b" not in rows  # undefined in both
-    assert not rows["c"].passed and "one ensemble only" in rows["c"].note
+    # defined in none of the reference and all of the current members: Fisher's exact
+    # test of the 2 x 2 table [[0, 4], [4, 0]] gives p = 2/70 (scipy.stats.fisher_exact)
+    assert rows["c"].p == pytest.approx(2 / 70) and "where defined" in rows["c"].note
+    # at a family-wise 0.1 over the 2 observables tested the threshold is 0.05 > 2/70
+    assert not {r.name: r for r in gate(ref, now, 0.1)}["c"].passed
+    # one member of four with a band is no evidence of a change
+    one = {"b": np.array([1.0, np.nan, np.nan, np.nan])}
+    none = {"b": np.full(4, np.nan)}
+    assert gate(one, none, 1e-3)[0].passed
     assert "a_sem" not in rows and not gated("a_sem") and gated("agents_order_mean")
     shifted = {r.name: r for r in gate({"a": np.ones(4)}, {"a": np.full(4, 2.0)}, 1e-3)}
     assert not shifted["a"].passed

@@ -89,7 +89,7 @@ def _check_cfg(tmp_path):
     # small and short: a 10 x 10 box, 100 particles, 60 time units
     return _tiny(tmp_path, domain={"size": [10.0, 10.0]}, continuum={"grid": [20, 20]},
                  run={"duration": 60.0, "sample_every": 1.0},
-                 agents={"dt": 0.5}, check={"ensemble": 4})
+                 agents={"dt": 0.5}, check={"ensemble": 6})
 
 
 def test_check_update_pass_refuse_and_detect(cli, tmp_path):
@@ -100,7 +100,7 @@ def test_check_update_pass_refuse_and_detect(cli, tmp_path):
     res = cli("check", cfg, "--reference", ref, "--update", cwd=tmp_path)
     assert res.returncode == 0, res.stderr
     r = read_dataset(ref, kind="reference")
-    assert r.sizes["member"] == 4 and "agents_order_mean" in r
+    assert r.sizes["member"] == 6 and "agents_order_mean" in r
     # same code, new seeds: passes
     res = cli("check", cfg, "--reference", ref, cwd=tmp_path)
     assert res.returncode == 0, res.stdout + res.stderr

@@ -97,3 +97,31 @@ def test_atomic_write_leaves_nothing_on_failure(tmp_path):
     assert list(tmp_path.iterdir()) == []
     with pytest.raises(InputError, match="does not exist"):
         write_dataset(_particles(load_config(small_mapping())), tmp_path / "no" / "x.nc")
+
+
+def test_embedded_config_is_parsed_never_evaluated(tmp_path):
+    cfg = load_config(small_mapping())
+    ds = _particles(cfg)
+    marker = tmp_path / "pwned"
+    ds.attrs["config"] = f"__import__('pathlib').Path({str(marker)!r}).touch()"
+    path = write_dataset(ds, tmp_path / "evil.nc")
+    with pytest.raises(InputError, match="is not valid TOML"):
+        dataset_config(read_dataset(path))
+    assert not marker.exists()
+
+
+def test_disk_full_leaves_nothing_and_says_so(tmp_path, monkeypatch):
+    import errno
+
+    cfg = load_config(small_mapping())
+    ds = _particles(cfg)
+
+    def full(self, path, *args, **kwargs):
+        with open(path, "wb") as fh:  # a partial file, as a real full disk leaves
+            fh.write(b"CDF\x01partial")
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(xr.Dataset, "to_netcdf", full)
+    with pytest.raises(InputError, match="No space left on device"):
+        write_dataset(ds, tmp_path / "out.nc")
+    assert list(tmp_path.iterdir()) == []

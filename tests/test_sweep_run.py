@@ -166,3 +166,16 @@ def test_sweep_cli_bad_input(cli, tmp_path, bad, match):
     path = _sweep_file(tmp_path, ["agents"])
     res = cli("sweep", path, "-o", tmp_path / "o", *bad, cwd=tmp_path)
     assert res.returncode == 2 and match in res.stderr and "Traceback" not in res.stderr
+
+
+def test_embedded_scheduler_listens_on_localhost_only():
+    from crossflock._sweep_run import _client
+
+    client, cluster = _client(1, None, 1)
+    try:
+        assert cluster.scheduler_address.startswith("tcp://127.0.0.1:")
+        for addr in client.scheduler_info()["workers"]:
+            assert addr.startswith("tcp://127.0.0.1:")
+    finally:
+        client.close()
+        cluster.close()
