@@ -4,9 +4,9 @@ An ensemble of independent seeds is run and each gated observable's ensemble is 
 with the reference ensemble by Welch's unequal-variance t-test (observables defined only
 in some members, such as the speed of a band, by Fisher's exact test on how often they
 are defined). The family-wise false-alarm rate ``check.false_alarm`` (default 1e-3) is
-split over the K observables tested (Bonferroni), so a correct model fails a check less often than ``false_alarm`` when the
-per-seed observables are close to normal (the t-test's assumption; means over long
-stationary runs are, by the central limit theorem).
+split over the K observables tested (Bonferroni), so a correct model fails a check less
+often than ``false_alarm`` when the per-seed observables are close to normal (the
+t-test's assumption; means over long stationary runs are, by the central limit theorem).
 
 The reference ensemble uses seed indices 0..n-1 (``crossflock._sweep.seed_value``); a
 check uses the next n indices, so it always tests *new* seeds against the reference while
