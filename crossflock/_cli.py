@@ -46,6 +46,8 @@ def build_parser() -> argparse.ArgumentParser:
                      description="Does the Toner-Tu continuum description reproduce the "
                                  "Vicsek-family particle model here?")
     parser.add_argument("--version", action="version", version=f"crossflock {__version__}")
+    parser.add_argument("--threads", type=int, default=None, metavar="N",
+                        help="numba threads for this process (results do not depend on it)")
     sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
     p = sub.add_parser("validate", help="check a config and print it fully resolved")
@@ -127,6 +129,14 @@ def main(argv=None) -> int:
     from . import _commands
 
     _install_sigterm()
+    if args.threads is not None:
+        import numba
+
+        if not 1 <= args.threads <= numba.config.NUMBA_NUM_THREADS:
+            print(f"crossflock: error: --threads must be between 1 and "
+                  f"{numba.config.NUMBA_NUM_THREADS} (got {args.threads})", file=sys.stderr)
+            return 2
+        numba.set_num_threads(args.threads)
     warnings.showwarning = _show_warning
     try:
         handler = getattr(_commands, "cmd_" + args.command)

@@ -85,3 +85,10 @@ def test_coefficients_prints_a_usable_table(cli, tmp_path):
     cfg = load_config(CONFIGS / "default.toml", overrides={"continuum.coefficients": table,
                                                            "continuum.dt": 0.025})
     assert cfg.continuum.coefficients.alpha == pytest.approx(table["alpha"])
+
+
+def test_threads_option(cli, tmp_path):
+    res = cli("--threads", "1", "validate", CONFIGS / "default.toml", cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    res = cli("--threads", "999", "validate", CONFIGS / "default.toml", cwd=tmp_path)
+    assert res.returncode == 2 and "--threads must be between 1 and" in res.stderr
