@@ -9,6 +9,7 @@ from . import _terms as terms
 from ._coefficients import CoefficientModel
 from ._driver import METHODS, check_state, make_solver, resolve_method, simulate
 from ._fd import FiniteDifferenceSolver
+from ._limiter import apply_realizability
 from ._linear import homogeneous_order, linear_sound_speeds, sound_speed_parameters
 from ._solver import ContinuumSolver, initial_fields
 from ._spectral import SpectralSolver
@@ -27,5 +28,6 @@ __all__ = [
     "linear_sound_speeds",
     "sound_speed_parameters",
     "homogeneous_order",
+    "apply_realizability",
     "terms",
 ]

@@ -20,6 +20,7 @@ from .._io import dataset_config, read_dataset, write_dataset
 from .._runtime import sample_plan
 from .._schema import to_mapping
 from .._stability import _method, stability_limit
+from ._dispersion import max_growth
 from ._fd import FiniteDifferenceSolver
 from ._spectral import SpectralSolver
 
@@ -263,6 +264,28 @@ def simulate(cfg=None, *, progress=None, checkpoint=None, resume=None, dt=None,
     return rec.dataset()
 
 
+def _linear_instability_hint(cfg) -> str | None:
+    """Hint naming a short-wavelength linear instability of the homogeneous state.
+
+    Returns None unless the fastest-growing mode within the de-aliased cut-off grows
+    and lies beyond half of that cut-off (a long-wave instability such as banding is
+    physics the grid can follow; a short-wave one is not).
+    """
+    try:
+        rate, kx, ky = max_growth(cfg)
+    except Exception:  # the hint must never mask the divergence itself
+        return None
+    lx, ly = cfg.domain.size
+    nx, ny = cfg.continuum.grid
+    cutoff = (2.0 / 3.0) * np.pi / max(lx / nx, ly / ny)
+    k = float(np.hypot(kx, ky))
+    if rate <= 0 or k <= 0.5 * cutoff:
+        return None
+    return (f"the homogeneous state of these equations is linearly unstable at |k| = "
+            f"{k:.3g} (growth {rate:.3g}); known for truncated kinetic equations deep in "
+            "the ordered phase; raise the noise or use a coefficient table")
+
+
 def _diverged(cfg, solver, cause, rec, last_good):
     limit, name = stability_limit(cfg)
     nx, ny = solver.nx, solver.ny
@@ -272,6 +295,9 @@ def _diverged(cfg, solver, cause, rec, last_good):
             f"dt = {solver.dt:g} is within the explicit limit {limit:.3g} ({name}); "
             f"the {nx}x{ny} grid may be too coarse for the gradients that formed, or the "
             "coefficients admit no bounded state (beta <= 0?)")
+    linear = _linear_instability_hint(cfg)
+    if linear:
+        hint = linear
     ds = rec.dataset(extra=last_good, last_good_time=float(last_good[0]),
                      failure=cause, failure_time=float(t))
     msg = (f"continuum run diverged at t = {t:g} ({cause}); {hint}; "

@@ -26,7 +26,11 @@ from numba import prange
 from . import _terms
 from ._solver import ContinuumSolver
 
-__all__ = ["FiniteDifferenceSolver", "fd_rhs", "fd_rhs_kernel", "interior_mask"]
+__all__ = ["FiniteDifferenceSolver", "fd_rhs", "fd_rhs_kernel", "fd_rhs_kernel_serial",
+           "interior_mask", "SERIAL_BELOW"]
+
+# Grids with fewer points than this run the serial kernel (see fd_rhs_kernel_serial).
+SERIAL_BELOW = 128 * 256
 
 
 @numba.njit(cache=True, inline="always")
@@ -35,6 +39,115 @@ def _nb(f, fluid, jj, ii, centre, parity):
     if jj < 0 or jj >= f.shape[0] or fluid[jj, ii] == 0:
         return parity * centre
     return f[jj, ii]
+
+
+@numba.njit(cache=True, inline="always")
+def _fd_row(j, rho, wx, wy, fluid, interior, channel, dx, dy, cs, local, use_local,
+            pressure, cross, out, update, u_prev, n_prev, dt, first, u_new):
+    """Row ``j`` of :func:`fd_rhs_kernel` (shared by the parallel and serial kernels)."""
+    ny, nx = rho.shape
+    rho0 = cs[11]
+    v0 = cs[10]
+    d_b = cs[7]
+    d_2 = cs[8]
+    d_rho = cs[9]
+    idx2 = 1.0 / (dx * dx)
+    idy2 = 1.0 / (dy * dy)
+    i2dx = 0.5 / dx
+    i2dy = 0.5 / dy
+    i4dxdy = 0.25 / (dx * dy)
+    third = 1.0 / 3.0
+    c2 = 2.0 * dt
+    jp = j + 1
+    jm = j - 1
+    if not channel:
+        if jp == ny:
+            jp = 0
+        if jm < 0:
+            jm = ny - 1
+    for i in range(nx):
+        if fluid[j, i] == 0:
+            for c in range(3):
+                out[c, j, i] = 0.0
+                if update:
+                    u_new[c, j, i] = 0.0
+            continue
+        ip = i + 1 if i + 1 < nx else 0
+        im = i - 1 if i > 0 else nx - 1
+        r = rho[j, i]
+        ux = wx[j, i]
+        uy = wy[j, i]
+        if interior[j, i]:  # all 8 neighbours fluid: plain loads, no ghost tests
+            rE, rW, rN, rS = rho[j, ip], rho[j, im], rho[jp, i], rho[jm, i]
+            xE, xW, xN, xS = wx[j, ip], wx[j, im], wx[jp, i], wx[jm, i]
+            yE, yW, yN, yS = wy[j, ip], wy[j, im], wy[jp, i], wy[jm, i]
+        else:
+            rE = _nb(rho, fluid, j, ip, r, 1.0)
+            rW = _nb(rho, fluid, j, im, r, 1.0)
+            rN = _nb(rho, fluid, jp, i, r, 1.0)
+            rS = _nb(rho, fluid, jm, i, r, 1.0)
+            xE = _nb(wx, fluid, j, ip, ux, -1.0)
+            xW = _nb(wx, fluid, j, im, ux, -1.0)
+            xN = _nb(wx, fluid, jp, i, ux, -1.0)
+            xS = _nb(wx, fluid, jm, i, ux, -1.0)
+            yE = _nb(wy, fluid, j, ip, uy, -1.0)
+            yW = _nb(wy, fluid, j, im, uy, -1.0)
+            yN = _nb(wy, fluid, jp, i, uy, -1.0)
+            yS = _nb(wy, fluid, jm, i, uy, -1.0)
+        gxx = (xE - xW) * i2dx
+        gyx = (xN - xS) * i2dy
+        gxy = (yE - yW) * i2dx
+        gyy = (yN - yS) * i2dy
+        hxx_x = (xE + xW - 2.0 * ux) * idx2
+        hyy_x = (xN + xS - 2.0 * ux) * idy2
+        hxx_y = (yE + yW - 2.0 * uy) * idx2
+        hyy_y = (yN + yS - 2.0 * uy) * idy2
+        hxy_x = 0.0
+        hxy_y = 0.0
+        if cross:
+            hxy_x = (_nb(wx, fluid, jp, ip, ux, -1.0) - _nb(wx, fluid, jp, im, ux, -1.0)
+                     - _nb(wx, fluid, jm, ip, ux, -1.0)
+                     + _nb(wx, fluid, jm, im, ux, -1.0)) * i4dxdy
+            hxy_y = (_nb(wy, fluid, jp, ip, uy, -1.0) - _nb(wy, fluid, jp, im, uy, -1.0)
+                     - _nb(wy, fluid, jm, ip, uy, -1.0)
+                     + _nb(wy, fluid, jm, im, uy, -1.0)) * i4dxdy
+        if use_local:
+            alpha = local[0, j, i]
+            beta = local[1, j, i]
+            d_t = local[2, j, i]
+            lam1 = local[3, j, i]
+            lam2 = local[4, j, i]
+            lam3 = local[5, j, i]
+        else:
+            alpha = cs[0] + cs[1] * (r - rho0)
+            beta = cs[2]
+            d_t = cs[3]
+            lam1 = cs[4]
+            lam2 = cs[5]
+            lam3 = cs[6]
+        fx, fy = _terms.momentum(
+            ux, uy, (rE - rW) * i2dx, (rN - rS) * i2dy,
+            gxx, gxy, gyx, gyy, hxx_x + hyy_x, hxx_y + hyy_y,
+            hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
+            alpha, beta, lam1, lam2, lam3, d_t, d_b, d_2,
+            _terms.pressure_slope(r - rho0, pressure))
+        lap_r = (rE + rW - 2.0 * r) * idx2 + (rN + rS - 2.0 * r) * idy2
+        n0 = _terms.continuity(gxx + gyy, lap_r, v0, d_rho)
+        out[0, j, i] = n0
+        out[1, j, i] = fx
+        out[2, j, i] = fy
+        if update:
+            if first:
+                u_new[0, j, i] = r + dt * n0
+                u_new[1, j, i] = ux + dt * fx
+                u_new[2, j, i] = uy + dt * fy
+            else:
+                u_new[0, j, i] = (4.0 * r - u_prev[0, j, i]
+                                  + c2 * (2.0 * n0 - n_prev[0, j, i])) * third
+                u_new[1, j, i] = (4.0 * ux - u_prev[1, j, i]
+                                  + c2 * (2.0 * fx - n_prev[1, j, i])) * third
+                u_new[2, j, i] = (4.0 * uy - u_prev[2, j, i]
+                                  + c2 * (2.0 * fy - n_prev[2, j, i])) * third
 
 
 @numba.njit(cache=True, parallel=True)
@@ -67,110 +180,24 @@ def fd_rhs_kernel(rho, wx, wy, fluid, interior, channel, dx, dy, cs, local, use_
         ``first``, fused here to save one pass over memory:
         ``u_new = (4u - u_prev + 2dt(2n - n_prev)) / 3``, or ``u + dt n`` when ``first``.
     """
-    ny, nx = rho.shape
-    rho0 = cs[11]
-    v0 = cs[10]
-    d_b = cs[7]
-    d_2 = cs[8]
-    d_rho = cs[9]
-    idx2 = 1.0 / (dx * dx)
-    idy2 = 1.0 / (dy * dy)
-    i2dx = 0.5 / dx
-    i2dy = 0.5 / dy
-    i4dxdy = 0.25 / (dx * dy)
-    third = 1.0 / 3.0
-    c2 = 2.0 * dt
-    for j in prange(ny):
-        jp = j + 1
-        jm = j - 1
-        if not channel:
-            if jp == ny:
-                jp = 0
-            if jm < 0:
-                jm = ny - 1
-        for i in range(nx):
-            if fluid[j, i] == 0:
-                for c in range(3):
-                    out[c, j, i] = 0.0
-                    if update:
-                        u_new[c, j, i] = 0.0
-                continue
-            ip = i + 1 if i + 1 < nx else 0
-            im = i - 1 if i > 0 else nx - 1
-            r = rho[j, i]
-            ux = wx[j, i]
-            uy = wy[j, i]
-            if interior[j, i]:  # all 8 neighbours fluid: plain loads, no ghost tests
-                rE, rW, rN, rS = rho[j, ip], rho[j, im], rho[jp, i], rho[jm, i]
-                xE, xW, xN, xS = wx[j, ip], wx[j, im], wx[jp, i], wx[jm, i]
-                yE, yW, yN, yS = wy[j, ip], wy[j, im], wy[jp, i], wy[jm, i]
-            else:
-                rE = _nb(rho, fluid, j, ip, r, 1.0)
-                rW = _nb(rho, fluid, j, im, r, 1.0)
-                rN = _nb(rho, fluid, jp, i, r, 1.0)
-                rS = _nb(rho, fluid, jm, i, r, 1.0)
-                xE = _nb(wx, fluid, j, ip, ux, -1.0)
-                xW = _nb(wx, fluid, j, im, ux, -1.0)
-                xN = _nb(wx, fluid, jp, i, ux, -1.0)
-                xS = _nb(wx, fluid, jm, i, ux, -1.0)
-                yE = _nb(wy, fluid, j, ip, uy, -1.0)
-                yW = _nb(wy, fluid, j, im, uy, -1.0)
-                yN = _nb(wy, fluid, jp, i, uy, -1.0)
-                yS = _nb(wy, fluid, jm, i, uy, -1.0)
-            gxx = (xE - xW) * i2dx
-            gyx = (xN - xS) * i2dy
-            gxy = (yE - yW) * i2dx
-            gyy = (yN - yS) * i2dy
-            hxx_x = (xE + xW - 2.0 * ux) * idx2
-            hyy_x = (xN + xS - 2.0 * ux) * idy2
-            hxx_y = (yE + yW - 2.0 * uy) * idx2
-            hyy_y = (yN + yS - 2.0 * uy) * idy2
-            hxy_x = 0.0
-            hxy_y = 0.0
-            if cross:
-                hxy_x = (_nb(wx, fluid, jp, ip, ux, -1.0) - _nb(wx, fluid, jp, im, ux, -1.0)
-                         - _nb(wx, fluid, jm, ip, ux, -1.0)
-                         + _nb(wx, fluid, jm, im, ux, -1.0)) * i4dxdy
-                hxy_y = (_nb(wy, fluid, jp, ip, uy, -1.0) - _nb(wy, fluid, jp, im, uy, -1.0)
-                         - _nb(wy, fluid, jm, ip, uy, -1.0)
-                         + _nb(wy, fluid, jm, im, uy, -1.0)) * i4dxdy
-            if use_local:
-                alpha = local[0, j, i]
-                beta = local[1, j, i]
-                d_t = local[2, j, i]
-                lam1 = local[3, j, i]
-                lam2 = local[4, j, i]
-                lam3 = local[5, j, i]
-            else:
-                alpha = cs[0] + cs[1] * (r - rho0)
-                beta = cs[2]
-                d_t = cs[3]
-                lam1 = cs[4]
-                lam2 = cs[5]
-                lam3 = cs[6]
-            fx, fy = _terms.momentum(
-                ux, uy, (rE - rW) * i2dx, (rN - rS) * i2dy,
-                gxx, gxy, gyx, gyy, hxx_x + hyy_x, hxx_y + hyy_y,
-                hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
-                alpha, beta, lam1, lam2, lam3, d_t, d_b, d_2,
-                _terms.pressure_slope(r - rho0, pressure))
-            lap_r = (rE + rW - 2.0 * r) * idx2 + (rN + rS - 2.0 * r) * idy2
-            n0 = _terms.continuity(gxx + gyy, lap_r, v0, d_rho)
-            out[0, j, i] = n0
-            out[1, j, i] = fx
-            out[2, j, i] = fy
-            if update:
-                if first:
-                    u_new[0, j, i] = r + dt * n0
-                    u_new[1, j, i] = ux + dt * fx
-                    u_new[2, j, i] = uy + dt * fy
-                else:
-                    u_new[0, j, i] = (4.0 * r - u_prev[0, j, i]
-                                      + c2 * (2.0 * n0 - n_prev[0, j, i])) * third
-                    u_new[1, j, i] = (4.0 * ux - u_prev[1, j, i]
-                                      + c2 * (2.0 * fx - n_prev[1, j, i])) * third
-                    u_new[2, j, i] = (4.0 * uy - u_prev[2, j, i]
-                                      + c2 * (2.0 * fy - n_prev[2, j, i])) * third
+    for j in prange(rho.shape[0]):
+        _fd_row(j, rho, wx, wy, fluid, interior, channel, dx, dy, cs, local, use_local,
+                pressure, cross, out, update, u_prev, n_prev, dt, first, u_new)
+
+
+@numba.njit(cache=True)
+def fd_rhs_kernel_serial(rho, wx, wy, fluid, interior, channel, dx, dy, cs, local,
+                         use_local, pressure, cross, out, update, u_prev, n_prev, dt,
+                         first, u_new):
+    """:func:`fd_rhs_kernel` on one thread (same arguments, bit-identical result).
+
+    Small grids use it: a parallel region per step costs more than it saves there, and
+    on shared cores a descheduled worker thread stalls every step (measured 13x slower
+    on a 64 x 64 grid with 2 threads on a loaded 2-core machine).
+    """
+    for j in range(rho.shape[0]):
+        _fd_row(j, rho, wx, wy, fluid, interior, channel, dx, dy, cs, local, use_local,
+                pressure, cross, out, update, u_prev, n_prev, dt, first, u_new)
 
 
 def interior_mask(fluid, channel):
@@ -248,10 +275,11 @@ class FiniteDifferenceSolver(ContinuumSolver):
 
     def _kernel(self, u, out, update, u_new):
         local = self.coef.local(u[0], self._local) if self.coef.kinetic else self._local
-        fd_rhs_kernel(u[0], u[1], u[2], self._fluid, self._interior, self.geometry.channel,
-                      self.dx, self.dy, self.coef.scalars, local, self.coef.kinetic,
-                      self.coef.pressure, self._cross, out, update, self._u_prev,
-                      self._n_prev, self.dt, self._first, u_new)
+        kernel = fd_rhs_kernel_serial if self.nx * self.ny < SERIAL_BELOW else fd_rhs_kernel
+        kernel(u[0], u[1], u[2], self._fluid, self._interior, self.geometry.channel,
+               self.dx, self.dy, self.coef.scalars, local, self.coef.kinetic,
+               self.coef.pressure, self._cross, out, update, self._u_prev,
+               self._n_prev, self.dt, self._first, u_new)
 
     def _step_impl(self):
         # right-hand side and the explicit SBDF2 update in one pass; noise added after
@@ -263,6 +291,7 @@ class FiniteDifferenceSolver(ContinuumSolver):
         self._u_prev, self._u, self._out = self._u, self._out, self._u_prev
         self._n_prev, self._n = self._n, self._n_prev
         self._first = False
+        self._limit(self._u[0], self._u[1], self._u[2])
 
     def _state_arrays(self):
         return {"u": self._u, "u_prev": self._u_prev, "n_prev": self._n_prev,

@@ -11,6 +11,10 @@ which is fully explicit with the limit of :mod:`crossflock._stability`). The fir
 is the first-order member (u^1 - u^0 = dt N^0 + dt L u^1 + dW^0). One right-hand-side
 evaluation per step.
 
+After every step (and on the initial state) the realizability limiter of
+:mod:`._limiter` projects the state onto rho >= 0, |w| <= rho when
+``continuum.realizability`` is on ("auto": with kinetic coefficients).
+
 Noise convention
 ----------------
 ``<xi_a(r, t) xi_b(r', t')> = 2 noise_strength delta_ab delta(r - r') delta(t - t')``,
@@ -32,6 +36,7 @@ import numpy as np
 from .._geometry import geometry_from_config, grid_coords, grid_mask
 from .._runtime import rng_for
 from ._coefficients import CoefficientModel
+from ._limiter import apply_realizability
 
 __all__ = ["ContinuumSolver", "initial_fields"]
 
@@ -78,6 +83,9 @@ class ContinuumSolver:
     n_steps : int
     status : str
         "running" until a step fails.
+    limited_cells : int
+        Cells changed by the realizability limiter so far (``continuum.realizability``;
+        see :mod:`._limiter`).
     """
 
     name = ""
@@ -99,16 +107,22 @@ class ContinuumSolver:
         self.time = 0.0
         self.n_steps = 0
         self.status = "running"
+        real = cfg.continuum.realizability
+        self.realizability = self.coef.kinetic if real == "auto" else bool(real)
+        self.limited_cells = 0
+        self._fluid8 = np.ascontiguousarray(self.mask, dtype=np.uint8)
         self._noise_amp = math.sqrt(2.0 * self.coef.noise_strength * self.dt
                                     / (self.dx * self.dy))
         self._setup()
         if initial is None:
             initial = initial_fields(cfg, self.mask)
-        rho, wx, wy = (np.ascontiguousarray(a, dtype=np.float64) for a in initial)
+        rho, wx, wy = (np.array(a, dtype=np.float64, order="C") for a in initial)
         for a in (rho, wx, wy):
             if a.shape != (self.ny, self.nx):
                 raise ValueError(f"initial fields must be ({self.ny}, {self.nx}), "
                                  f"got {a.shape}")
+        # a start with |P| = 1 plus noise leaves the realizable set at once
+        self._limit(rho, wx, wy)
         self._set_fields(rho, wx, wy)
 
     # ------------------------------------------------------------------ public
@@ -142,6 +156,14 @@ class ContinuumSolver:
         self.status = "running"
 
     # ------------------------------------------------------------------ helpers
+    def _limit(self, rho, wx, wy) -> int:
+        """Apply the realizability limiter in place (when on); returns cells changed."""
+        if not self.realizability:
+            return 0
+        n = apply_realizability(rho, wx, wy, self._fluid8)
+        self.limited_cells += n
+        return n
+
     def _noise(self) -> np.ndarray | None:
         """Noise increments dW ``(2, ny, nx)`` for this step (None without noise)."""
         if self._noise_amp == 0.0:

@@ -342,6 +342,15 @@ class SpectralSolver(ContinuumSolver):
         self._uh_prev, self._uh, self._nh_prev = self._uh, new, nh
         self._first = False
         self._real = _irfft2(new, (self.ny, self.nx), self.workers)
+        if self.realizability:
+            real = self._real
+            if self._limit(real[0], real[1], real[2]):
+                # back to the truncated Fourier state; the mean (mass) mode is exact, the
+                # re-truncation can leave small overshoots of the bounds
+                uh = _rfft2(real, self.workers)
+                uh *= self.dealias
+                self._uh = uh
+                self._real = _irfft2(uh, (self.ny, self.nx), self.workers)
 
     def _state_arrays(self):
         return {"uh": self._uh, "uh_prev": self._uh_prev, "nh_prev": self._nh_prev,

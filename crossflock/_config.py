@@ -264,6 +264,12 @@ def _auto_or_nonneg(key, value):
     return float(value)
 
 
+def _auto_or_bool(key, value):
+    if value == "auto" or isinstance(value, bool):
+        return value
+    raise ConfigError(f'`{key}` must be "auto", true or false (got {fmt_value(value)})')
+
+
 @dataclass(frozen=True, kw_only=True)
 class ContinuumConfig:
     """Continuum (Toner-Tu) engine settings."""
@@ -286,6 +292,21 @@ class ContinuumConfig:
         "auto", _auto_or_nonneg,
         'BDG self-diffusion (tumble) rate lambda in 1/time; "auto" = 1 / agents.dt, '
         "since every particle is kicked by the noise once per step",
+    )
+    kinetic_noise: Any = field(
+        0.0, _auto_or_nonneg,
+        'noise_strength with "kinetic" coefficients; "auto" = D_r rho0 / 2, the '
+        "rotational diffusion D_r of the particle noise (an estimate)",
+    )
+    kinetic_D_rho: float = field(
+        0.0, "float", 'density diffusion D_rho with "kinetic" coefficients (a numerical '
+        "regularisation, not part of the kinetic theory)", _nonneg, "must be >= 0",
+    )
+    realizability: Any = field(
+        "auto", _auto_or_bool,
+        "after each step set rho >= 0 (mass-conserving) and |w| <= rho, a numerical "
+        'safeguard: true, false, or "auto" (on with "kinetic" coefficients, off with a '
+        "table, whose homogeneous state may lie outside |w| <= rho)",
     )
     initial_noise: float = field(
         0.01, "float", "amplitude of the random initial perturbation of rho and w",

@@ -28,9 +28,26 @@ Mapping of the alignment model onto BDG (an approximation, stated here and in th
   crossflock's lambda3 grad|w|^2 with lambda3 = -kappa/2 evaluated locally drops the
   (|w|^2 / 2) grad kappa part (second order in gradients times w^2).
 * Far from the onset (rho >> rho_t, small noise) the truncated BDG equations have a
-  short-wavelength instability of the homogeneous ordered state (growth rate ~0.3 at
-  k ~ 8 / R for the default [model]); continuum runs there need D_T-resolving grids or
-  diverge (exit 3). This is a property of the truncated equations, not of the particles.
+  short-wavelength instability of the homogeneous ordered state (growth rate ~0.28 at
+  |k| ~ 4 / R for rho0 = 2, eta = 0.2; stable at eta = 0.3, see
+  ``crossflock.continuum._dispersion.max_growth``); continuum runs there diverge (exit 3,
+  and the message says so). This is a property of the truncated equations, not of the
+  particles.
+* Noise (``continuum.kinetic_noise = "auto"``): the BDG equations are deterministic, so
+  the fluctuations of the particles are put back as the additive polarization noise of
+  GUIDE section 3. Every heading gets one random kick per ``agents.dt`` of variance s2,
+  hence rotational diffusion D_r = s2 / (2 agents.dt), with the small-angle variances
+  s2 = (pi eta)^2 / 3 (angular, uniform kick; also used for vectorial noise, an
+  approximation) and s2 = (pi eta)^2 (gaussian kind, unwrapped value). Ito calculus on
+  w = sum_i e_i delta(r - r_i) (as Dean 1996, J. Phys. A 29, L613, does for the density)
+  gives a noise sum_i sqrt(2 D_r) e_i^perp dW_i delta(r - r_i) whose correlation,
+  averaged over headings, is <xi_a xi_b> = D_r rho0 delta_ab delta(r - r') delta(t - t'),
+  i.e. noise_strength = D_r rho0 / 2 in the engine's convention
+  <xi xi> = 2 noise_strength delta delta. This is an estimate: it ignores the extra
+  fluctuations from alignment (neighbour-count noise) and the anisotropy of e^perp in
+  the ordered state.
+* ``continuum.kinetic_D_rho`` adds a density diffusion, a numerical regularisation of
+  steep fronts (particles have none at the hydrodynamic level).
 * BDG is a dilute, binary-collision theory; Vicsek particles at density ~ 1 per R^2 have
   several neighbours at once, so the coefficients are indicative, not quantitative.
 
@@ -54,6 +71,8 @@ __all__ = [
     "kinetic_coefficients",
     "kinetic_local",
     "bdg_onset_sigma",
+    "rotational_diffusion",
+    "kinetic_noise_strength",
 ]
 
 
@@ -117,6 +136,29 @@ def tumble_rate(cfg) -> float:
     return 1.0 / cfg.agents.dt if lam == "auto" else float(lam)
 
 
+def rotational_diffusion(cfg) -> float:
+    """Rotational diffusion D_r = s2 / (2 agents.dt) of the particle headings.
+
+    s2 is the small-angle variance of one noise kick: (pi eta)^2 / 3 for the angular
+    (uniform) and vectorial kinds, (pi eta)^2 for the gaussian kind.
+    """
+    m = cfg.model
+    x = math.pi * m.noise
+    s2 = x * x if m.noise_kind == "gaussian" else x * x / 3.0
+    return s2 / (2.0 * cfg.agents.dt)
+
+
+def kinetic_noise_strength(cfg) -> float:
+    """``noise_strength`` in kinetic mode: ``continuum.kinetic_noise`` resolved.
+
+    "auto" gives D_r rho0 / 2 (module docstring); a number is used as it is.
+    """
+    val = cfg.continuum.kinetic_noise
+    if val == "auto":
+        return 0.5 * rotational_diffusion(cfg) * cfg.model.density
+    return float(val)
+
+
 def kinetic_local(cfg, rho):
     """Kinetic coefficients evaluated at the local density ``rho`` (physical units).
 
@@ -148,8 +190,8 @@ def kinetic_local(cfg, rho):
         "pressure": (0.5 * m.speed,),
         "D_B": 0.0,
         "D_2": 0.0,
-        "D_rho": 0.0,
-        "noise_strength": 0.0,
+        "D_rho": float(cfg.continuum.kinetic_D_rho),
+        "noise_strength": kinetic_noise_strength(cfg),
     }
 
 
