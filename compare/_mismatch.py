@@ -217,9 +217,18 @@ def _overall(rows, obs_a, obs_b):
     return "holds", "holds: " + ", ".join(r["name"] for r in used) + " within tolerance"
 
 
+def _labels(mismatch: xr.Dataset) -> tuple[str, str]:
+    """Short names of the two compared runs (their engines), "a" and "b" if unknown."""
+    short = {"agents-coarse-grained": "particles", "agents": "particles"}
+    a = str(mismatch.attrs.get("engine_a", "a"))
+    b = str(mismatch.attrs.get("engine_b", "b"))
+    return short.get(a, a), short.get(b, b)
+
+
 def verdict_table(mismatch: xr.Dataset) -> str:
     """Plain-text table of a mismatch Dataset (for the CLI)."""
-    head = ("observable", "a", "b", "a - b", "+/-", "z", "tol", "verdict")
+    a, b = _labels(mismatch)
+    head = ("observable", a, b, "a - b", "+/-", "z", "tol", "verdict")
     lines = []
     def g(v, i):
         x = float(mismatch[v].values[i])

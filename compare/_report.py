@@ -9,6 +9,8 @@ from pathlib import Path
 
 import matplotlib
 
+from ._mismatch import _labels
+
 matplotlib.use("Agg")  # files only, never a display; must precede pyplot
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
@@ -129,7 +131,8 @@ def _gnf(observables):
 
 
 def _mismatch_table(mismatch):
-    head = ["observable", "a", "b", "a - b", "+/-", "z", "tolerance", "verdict"]
+    a, b = _labels(mismatch)
+    head = ["observable", f"a: {a}", f"b: {b}", "a - b", "+/-", "z", "tolerance", "verdict"]
     rows = []
     for i, name in enumerate(mismatch["observable"].values):
         cells = [html.escape(str(name))]
