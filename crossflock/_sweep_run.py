@@ -171,6 +171,9 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
                     bar.update(1)
             if bar is not None:
                 bar.close()
+        except KeyboardInterrupt:
+            _silence_dask()  # tearing down mid-task makes dask log internal errors
+            raise
         finally:
             client.close()
             if cluster is not None:
@@ -186,6 +189,13 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
         pass
     summary.seconds = time.perf_counter() - start
     return summary
+
+
+def _silence_dask():
+    import logging
+
+    for name in ("distributed", "tornado", "asyncio"):
+        logging.getLogger(name).setLevel(logging.CRITICAL + 1)
 
 
 def _bar(total, progress):

@@ -183,3 +183,32 @@ def test_calibrate_cli_writes_a_usable_table(cli, tmp_path):
     cli("run", cfg, "--engine", "agents", "-o", particles, cwd=tmp_path)
     res = cli("calibrate", particles, "-o", out, cwd=tmp_path)
     assert res.returncode == 2 and "has no particle snapshots" in res.stderr
+
+
+def test_diverging_continuum_exits_3_and_keeps_last_good_state(cli, tmp_path):
+    # beta = 0 leaves alpha > 0 unsaturated: |w| grows like exp(alpha t) until the
+    # blow-up guard stops the run (exact solution of d_t w = alpha w)
+    cfg = _tiny(tmp_path, run={"duration": 40.0, "initial": "ordered"},
+                continuum={"dt": 0.02, "coefficients": {"alpha": 1.0, "beta": 0.0,
+                                                        "D_T": 0.1}})
+    out = tmp_path / "c.nc"
+    res = cli("run", cfg, "--engine", "continuum", "-o", out, cwd=tmp_path)
+    assert res.returncode == 3, res.stderr
+    assert "diverged at t =" in res.stderr and "Traceback" not in res.stderr
+    assert not out.exists()
+    last = read_dataset(tmp_path / "c.last_good.nc", kind="fields")
+    assert np.isfinite(last["rho"].values).all() and last.sizes["time"] >= 1
+
+
+def test_check_refuses_corrupt_and_foreign_references(cli, tmp_path):
+    cfg = _check_cfg(tmp_path)
+    corrupt = tmp_path / "ref.nc"
+    corrupt.write_bytes(b"\x89HDF\r\n\x1a\n" + b"\0" * 64)
+    res = cli("check", cfg, "--reference", corrupt, cwd=tmp_path)
+    assert res.returncode == 2 and "not a readable netCDF file" in res.stderr
+    run = tmp_path / "run.nc"
+    cli("run", cfg, "--engine", "agents", "-o", run, cwd=tmp_path)
+    res = cli("check", cfg, "--reference", run, cwd=tmp_path)
+    assert res.returncode == 2 and "expected 'reference'" in res.stderr
+    res = cli("compare", cfg, "-o", tmp_path / "cmp", "--coefficients", run, cwd=tmp_path)
+    assert res.returncode == 2 and "is not valid TOML" in res.stderr

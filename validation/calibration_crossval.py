@@ -58,7 +58,11 @@ def base_mapping(duration, seed, *, polarization=1.0, noise=0.2, density=2.0):
         "run": {"duration": duration, "sample_every": 1.0, "seed": seed,
                 "initial": "ordered", "initial_polarization": polarization},
         "agents": {"dt": 1.0, "snapshots": True},
-        "continuum": {"grid": [32, 32], "dt": 0.02},
+        # the realizability safeguard (|w| <= rho, rho >= 0) on for both coefficient sets;
+        # kinetic noise estimated from the particle noise (see crossflock._kinetic)
+        "continuum": {"grid": [32, 32], "dt": 0.02, "realizability": True,
+                      "method": "finite_difference",
+                      "kinetic_noise": "auto"},
         "compare": {"transient": 0.2},
     }
 
