@@ -6,7 +6,7 @@ wall times, the 1 -> 2 worker speed-up, and the per-point overhead of the sweep 
 ((sweep with 1 worker - serial reference) / points; includes cluster start-up, point
 files, combining and figures).
 
-Usage: ``python benchmarks/bench_sweep.py [--repeats 3]``
+Usage: ``python benchmarks/bench_sweep.py [--repeats 3] [--duration 200]``
 """
 
 from __future__ import annotations
@@ -39,7 +39,10 @@ BASE = {
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--duration", type=float, default=200.0,
+                    help="simulated time per task (longer tasks amortise start-up)")
     args = ap.parse_args()
+    BASE["run"]["duration"] = args.duration
     work = Path(tempfile.mkdtemp(prefix="bench-sweep-"))
     path = work / "sweep.toml"
     path.write_text(tomli_w.dumps({"seeds": 2, "engines": ["agents", "continuum"],
@@ -68,7 +71,7 @@ def main():
     ref = statistics.median(serial)
     n = len(tasks)
     print(f"machine: {os.cpu_count()} cores, load {os.getloadavg()[0]:.2f}")
-    print(f"{n} tasks (both engines, 24x24, 200 time units each)")
+    print(f"{n} tasks (both engines, 24x24, {args.duration:g} time units each)")
     print(f"serial reference (in process) : {ref:8.2f} s  ({ref / n:.2f} s per task)")
     print(f"sweep, 1 worker               : {timings[1]:8.2f} s")
     print(f"sweep, 2 workers              : {timings[2]:8.2f} s")
