@@ -131,7 +131,10 @@ def run_compare(cfg: Config, outdir, *, progress=None, coefficients_file=None):
     report_runs.update({k: runs[k] for k in variants})
     out.report = write_report(outdir / "report.html", runs=report_runs,
                               observables=obs, mismatch=mismatch,
-                              extra_sections=extra or None)
+                              extra_sections={
+                                  f"Mismatch with the {name} coefficients "
+                                  "(kinetic above, side by side in the figures)":
+                                  verdict_table(m) for name, m in extra.items()} or None)
     out.verdict = str(mismatch.attrs.get("verdict", "not resolved"))
     out.reason = str(mismatch.attrs.get("reason", ""))
     out.mismatch = mismatch

@@ -79,6 +79,9 @@ def test_compare_with_a_coefficient_file(cli, tmp_path):
     assert res.returncode in (0, 1), res.stderr
     assert (out / "continuum_calibrated.nc").exists()
     assert (out / "mismatch_calibrated.nc").exists()
+    html = (out / "report.html").read_text()
+    assert "Mismatch with the calibrated coefficients" in html
+    assert (out / "observables_continuum_calibrated.nc").exists()  # plotted beside kinetic
     bad = tmp_path / "bad.toml"
     bad.write_text("[continuum]\ngrid = [8, 8]\n")
     res = cli("compare", cfg, "-o", out, "--coefficients", bad, cwd=tmp_path)
