@@ -31,12 +31,16 @@ from __future__ import annotations
 import json
 import math
 
+import numba
 import numpy as np
 
 from .._geometry import geometry_from_config, grid_coords, grid_mask
 from .._runtime import rng_for
 from ._coefficients import CoefficientModel
 from ._limiter import apply_realizability
+
+# grids smaller than this step on one numba thread (see ContinuumSolver.step)
+SMALL_GRID = 128 * 256
 
 __all__ = ["ContinuumSolver", "initial_fields"]
 
@@ -130,7 +134,18 @@ class ContinuumSolver:
         """Advance one time step; returns :attr:`status`."""
         if self.status != "running":
             raise RuntimeError(f"solver is {self.status}; cannot step")
-        self._step_impl()
+        nx, ny = self.cfg.continuum.grid
+        if nx * ny < SMALL_GRID and numba.get_num_threads() > 1:
+            # waking the thread pool costs more than it saves on small grids (and much
+            # more on a busy machine); results do not depend on the thread count
+            threads = numba.get_num_threads()
+            numba.set_num_threads(1)
+            try:
+                self._step_impl()
+            finally:
+                numba.set_num_threads(threads)
+        else:
+            self._step_impl()
         self.n_steps += 1
         self.time = self.n_steps * self.dt
         return self.status

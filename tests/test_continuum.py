@@ -371,9 +371,14 @@ def test_blowup_guard_from_unbounded_coefficients():
 
 
 @pytest.mark.parametrize("method", ["spectral", "finite_difference"])
-def test_result_independent_of_thread_count(method):
+def test_result_independent_of_thread_count(method, monkeypatch):
     import numba
 
+    from crossflock.continuum import _fd, _solver
+
+    # force the parallel kernels even on this small grid
+    monkeypatch.setattr(_solver, "SMALL_GRID", 0)
+    monkeypatch.setattr(_fd, "SERIAL_BELOW", 0)
     coeffs = dict(ACTIVE, noise_strength=0.01)
     cfg = _cfg(continuum={"method": method, "coefficients": coeffs})
     before = numba.get_num_threads()

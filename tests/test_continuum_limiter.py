@@ -177,9 +177,14 @@ def test_no_instability_hint_inside_the_stable_window():
 
 
 @pytest.mark.parametrize("method", ["finite_difference", "spectral"])
-def test_limited_run_independent_of_thread_count(method):
+def test_limited_run_independent_of_thread_count(method, monkeypatch):
     import numba
 
+    from crossflock.continuum import _fd, _solver
+
+    # force the parallel kernels even on this small grid
+    monkeypatch.setattr(_solver, "SMALL_GRID", 0)
+    monkeypatch.setattr(_fd, "SERIAL_BELOW", 0)
     cfg = _kinetic_cfg(method, kinetic_noise="auto")
     before = numba.get_num_threads()
     out = []
