@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .._kinetic import kinetic_local
+from .._kinetic import kinetic_linear_form, kinetic_local
 
 __all__ = ["CoefficientModel", "SCALARS", "LOCALS"]
 
@@ -53,6 +53,8 @@ class CoefficientModel:
         self.pressure = np.array(ref["pressure"], dtype=np.float64).reshape(-1)
         self.noise_strength = float(ref["noise_strength"])
         self._dummy = np.zeros((len(LOCALS), 1, 1))
+        self._form = kinetic_linear_form(cfg) if self.kinetic else None
+        self._scratch = None
 
     def get(self, name: str) -> float:
         """Scalar coefficient ``name`` (at rho0 in kinetic mode)."""
@@ -65,11 +67,20 @@ class CoefficientModel:
         """
         if not self.kinetic:
             return self._dummy
-        c = kinetic_local(self._cfg, np.maximum(rho, 0.0))
         if out is None:
             out = np.empty((len(LOCALS),) + rho.shape)
-        for i, name in enumerate(LOCALS):
-            out[i] = c[name]
+        if self._scratch is None or self._scratch.shape != rho.shape:
+            self._scratch = np.empty(rho.shape)
+        # the closed form of kinetic_local, evaluated into buffers (called every step)
+        f, q = self._form, self._scratch
+        np.maximum(rho, 0.0, out=q)
+        np.multiply(q, f["alpha_slope"], out=out[0])
+        out[0] += f["alpha_offset"]
+        q *= f["q_b"]
+        q += f["q_a"]
+        np.divide(1.0, q, out=q)
+        for i, name in enumerate(LOCALS[1:], start=1):
+            np.multiply(q, f["per_q"][name], out=out[i])
         return out
 
     def alpha_at(self, rho):

@@ -66,6 +66,8 @@ import numpy as np
 __all__ = [
     "noise_sigma",
     "bdg_dimensionless",
+    "bdg_constants",
+    "kinetic_linear_form",
     "units",
     "tumble_rate",
     "kinetic_coefficients",
@@ -113,15 +115,57 @@ def bdg_dimensionless(rho, sigma, sigma0, lam):
         nu, gamma, kappa, mu, xi (arrays shaped like ``rho``).
     """
     rho = np.asarray(rho, dtype=float)
+    k = bdg_constants(sigma, sigma0, lam)
+    nu = 0.25 / (k["nu_a"] + k["nu_b"] * rho)
+    return {"nu": nu, "gamma": k["gamma_per_nu"] * nu, "kappa": k["kappa_per_nu"] * nu,
+            "mu": k["mu_slope"] * rho + k["mu_offset"], "xi": k["xi_per_nu"] * nu}
+
+
+def bdg_constants(sigma, sigma0, lam) -> dict:
+    """The density-independent factors of the BDG coefficients (BDG units).
+
+    nu = 1/4 (nu_a + nu_b rho)^-1; gamma, kappa and xi are nu times ``*_per_nu``;
+    mu = mu_slope rho + mu_offset (the formulas of :func:`bdg_dimensionless`).
+    """
     e2 = math.exp(-2.0 * sigma**2)
     eh = math.exp(-0.5 * sigma**2)
-    nu = 0.25 / (lam * (1.0 - math.exp(-2.0 * sigma0**2))
-                 + (4.0 / math.pi) * rho * (14.0 / 15.0 + (2.0 / 3.0) * e2))
-    gamma = (8.0 * nu / math.pi) * (16.0 / 15.0 + 2.0 * e2 - eh)
-    kappa = (8.0 * nu / math.pi) * (4.0 / 15.0 + 2.0 * e2 + eh)
-    mu = (4.0 / math.pi) * rho * (eh - 2.0 / 3.0) - lam * (1.0 - math.exp(-0.5 * sigma0**2))
-    xi = (64.0 * nu / math.pi**2) * (eh - 0.4) * (1.0 / 3.0 + e2)
-    return {"nu": nu, "gamma": gamma, "kappa": kappa, "mu": mu, "xi": xi}
+    return {
+        "nu_a": lam * (1.0 - math.exp(-2.0 * sigma0**2)),
+        "nu_b": (4.0 / math.pi) * (14.0 / 15.0 + (2.0 / 3.0) * e2),
+        "gamma_per_nu": (8.0 / math.pi) * (16.0 / 15.0 + 2.0 * e2 - eh),
+        "kappa_per_nu": (8.0 / math.pi) * (4.0 / 15.0 + 2.0 * e2 + eh),
+        "xi_per_nu": (64.0 / math.pi**2) * (eh - 0.4) * (1.0 / 3.0 + e2),
+        "mu_slope": (4.0 / math.pi) * (eh - 2.0 / 3.0),
+        "mu_offset": -lam * (1.0 - math.exp(-0.5 * sigma0**2)),
+    }
+
+
+def kinetic_linear_form(cfg) -> dict:
+    """Physical-unit constants of the local kinetic coefficients.
+
+    With q(rho) = 1 / (q_a + q_b rho): alpha(rho) = alpha_slope rho + alpha_offset and
+    beta, D_T, lambda1..3 = ``per_q[name]`` q(rho). Lets a solver evaluate
+    :func:`kinetic_local` every step into preallocated buffers.
+    """
+    m = cfg.model
+    length, tau = units(m)
+    l2 = length**2
+    sigma = noise_sigma(m.noise, m.noise_kind)
+    k = bdg_constants(sigma, sigma, tumble_rate(cfg) * tau)
+    nu_per_q = 0.25  # nu = 0.25 q in BDG units
+    return {
+        "q_a": k["nu_a"],
+        "q_b": k["nu_b"] * l2,
+        "alpha_slope": k["mu_slope"] * l2 / tau,
+        "alpha_offset": k["mu_offset"] / tau,
+        "per_q": {
+            "beta": nu_per_q * k["xi_per_nu"] * l2 * l2 / tau,
+            "D_T": nu_per_q * l2 / tau,
+            "lambda1": nu_per_q * k["gamma_per_nu"] * l2 * m.speed,
+            "lambda2": nu_per_q * k["kappa_per_nu"] * l2 * m.speed,
+            "lambda3": -0.5 * nu_per_q * k["kappa_per_nu"] * l2 * m.speed,
+        },
+    }
 
 
 def units(model) -> tuple[float, float]:
@@ -201,13 +245,9 @@ def kinetic_coefficients(cfg) -> dict:
     ``alpha_rho`` is the exact slope d alpha / d rho (mu is linear in rho); the
     coefficients that depend on rho through nu are given at rho0.
     """
-    m = cfg.model
-    length, tau = units(m)
-    sigma = noise_sigma(m.noise, m.noise_kind)
-    at = kinetic_local(cfg, m.density)
+    at = kinetic_local(cfg, cfg.model.density)
     out = {k: (float(v) if not isinstance(v, tuple) else list(v)) for k, v in at.items()}
-    eh = math.exp(-0.5 * sigma**2)
-    out["alpha_rho"] = (4.0 / math.pi) * (eh - 2.0 / 3.0) * length**2 / tau
+    out["alpha_rho"] = kinetic_linear_form(cfg)["alpha_slope"]
     order = ["alpha", "alpha_rho", "beta", "pressure", "D_T", "D_B", "D_2", "lambda1",
              "lambda2", "lambda3", "D_rho", "noise_strength"]
     return {k: out[k] for k in order}

@@ -392,3 +392,23 @@ def test_result_independent_of_thread_count(method, monkeypatch):
         numba.set_num_threads(before)
     for other in out[1:]:
         np.testing.assert_array_equal(other, out[0])
+
+
+def test_local_kinetic_coefficients_match_the_direct_formula():
+    # the solvers' buffered closed form against kinetic_local (the BDG 2006 formulas)
+    from crossflock._kinetic import kinetic_local
+    from crossflock.continuum import CoefficientModel
+
+    cfg = cf.load_config(_mapping_kinetic_r13())
+    rho = np.random.default_rng(0).uniform(-0.1, 6.0, (7, 9))
+    out = CoefficientModel(cfg).local(rho)
+    ref = kinetic_local(cfg, np.maximum(rho, 0.0))
+    for i, name in enumerate(("alpha", "beta", "D_T", "lambda1", "lambda2", "lambda3")):
+        np.testing.assert_allclose(out[i], ref[name], rtol=1e-13, atol=1e-15, err_msg=name)
+
+
+def _mapping_kinetic_r13():
+    return {"domain": {"size": [13.0, 13.0]},
+            "model": {"density": 2.0, "radius": 1.3, "noise": 0.3},
+            "run": {"duration": 10.0, "sample_every": 1.0}, "agents": {"dt": 0.5},
+            "continuum": {"grid": [16, 16], "dt": 0.01}}
