@@ -9,9 +9,8 @@ from __future__ import annotations
 import argparse
 import sys
 import warnings
-from pathlib import Path
 
-from ._errors import CrossflockError, InputError
+from ._errors import CrossflockError
 
 __all__ = ["main", "build_parser"]
 
@@ -160,15 +159,3 @@ def _entry():  # pragma: no cover
 
 if __name__ == "__main__":  # pragma: no cover
     sys.exit(main())
-
-
-def _ensure_dir(path) -> Path:
-    """Create an output folder (refusing a file in its place)."""
-    path = Path(path)
-    if path.exists() and not path.is_dir():
-        raise InputError(f"output {str(path)!r} exists and is not a directory")
-    try:
-        path.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise InputError(f"cannot create output folder {str(path)!r}: {exc.strerror}") from None
-    return path

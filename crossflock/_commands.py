@@ -6,8 +6,8 @@ import sys
 from pathlib import Path
 
 from ._config import load_config
-from ._errors import CheckFailed, InputError, NumericalError
-from ._io import check_writable, read_dataset, write_dataset
+from ._errors import InputError, NumericalError
+from ._io import check_writable, ensure_dir, read_dataset, status, write_dataset
 
 __all__ = [
     "cmd_validate",
@@ -50,7 +50,7 @@ def _save_last_good(exc: NumericalError, output: Path) -> None:
         return
     path = output.with_name(output.stem + ".last_good.nc")
     write_dataset(exc.last_good, path)
-    print(f"crossflock: last good state written to {path}", file=sys.stderr)
+    status(f"last good state written to {path}")
 
 
 def cmd_run(args) -> int:
@@ -67,8 +67,8 @@ def cmd_run(args) -> int:
         raise
     except KeyboardInterrupt:
         if args.checkpoint and Path(args.checkpoint).exists():
-            print(f"crossflock: checkpoint {args.checkpoint} is complete; continue with "
-                  f"`crossflock run ... --resume {args.checkpoint}`", file=sys.stderr)
+            status(f"checkpoint {args.checkpoint} is complete; continue with "
+                   f"`crossflock run ... --resume {args.checkpoint}`")
         raise
     write_dataset(ds, output)
     _out(f"wrote {output}")
@@ -148,14 +148,13 @@ def cmd_calibrate(args) -> int:
 
 
 def cmd_sweep(args) -> int:
-    from ._cli import _ensure_dir
     from ._sweep import load_sweep
     from ._sweep_run import run_sweep
 
     sweep = load_sweep(args.sweep_file)
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be a positive integer (got {args.workers})")
-    outdir = _ensure_dir(args.output)
+    outdir = ensure_dir(args.output)
     summary = run_sweep(sweep, outdir, workers=args.workers, scheduler=args.scheduler,
                         progress=args.progress)
     _out(summary.line())
@@ -178,12 +177,9 @@ def cmd_check(args) -> int:
     engines = cfg.check.engines
     n = cfg.check.ensemble
 
-    def log(msg):
-        print(f"crossflock: {msg}", file=sys.stderr, flush=True)
-
     if args.update:
         check_writable(ref_path)
-        values, seeds = run_ensemble(cfg, 0, n, engines, progress=args.progress, log=log)
+        values, seeds = run_ensemble(cfg, 0, n, engines, progress=args.progress, log=status)
         write_dataset(reference_dataset(cfg, values, seeds, engines), ref_path)
         _out(f"wrote reference {ref_path} ({n} seeds, engines {', '.join(engines)})")
         return 0
@@ -193,14 +189,14 @@ def cmd_check(args) -> int:
     ref_cfg = dataset_config(ref)
     problems = check_reference_usable(ref, cfg, ref_cfg, args.allow_config_change, ref_path)
     for p in problems:
-        log(f"note: {p} (compared anyway)")
+        status(f"note: {p} (compared anyway)")
     ref_engines = tuple(str(ref.attrs.get("engines", "")).split(","))
     if set(engines) - set(ref_engines):
         raise InputError(f"reference {str(ref_path)!r} holds engines {', '.join(ref_engines)}; "
                          f"`check.engines` asks for {', '.join(engines)}")
     reference = {k: ref[k].values for k in ref.data_vars}
     first = int(ref.sizes["member"])
-    current, _ = run_ensemble(cfg, first, n, engines, progress=args.progress, log=log)
+    current, _ = run_ensemble(cfg, first, n, engines, progress=args.progress, log=status)
     rows = gate(reference, current, cfg.check.false_alarm)
     _out(format_table(rows))
     failed = [r.name for r in rows if not r.passed]
@@ -211,6 +207,3 @@ def cmd_check(args) -> int:
          f"{cfg.check.false_alarm:g})")
     return 0
 
-
-# re-exported for commands that are added later without touching the CLI module
-_ = (CheckFailed, InputError)

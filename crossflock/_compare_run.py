@@ -16,13 +16,12 @@ files, and re-running the same command reuses every run whose embedded config ma
 
 from __future__ import annotations
 
-import sys
 import tomllib
 from pathlib import Path
 
 from ._config import Config, config_to_toml, load_config
 from ._errors import ConfigError, InputError
-from ._io import read_dataset, write_dataset
+from ._io import ensure_dir, read_dataset, status, write_dataset
 from ._pipeline import analysis, compare_config, run_engine
 
 __all__ = ["run_compare", "CompareOutcome", "load_coefficients_file"]
@@ -58,10 +57,6 @@ def load_coefficients_file(path) -> dict:
     return table
 
 
-def _log(msg: str) -> None:
-    print(f"crossflock: {msg}", file=sys.stderr, flush=True)
-
-
 def _reuse_or_run(path: Path, cfg: Config, make):
     """Reuse ``path`` when it holds a result of the same config, else compute it."""
     text = config_to_toml(cfg)
@@ -69,7 +64,7 @@ def _reuse_or_run(path: Path, cfg: Config, make):
         try:
             ds = read_dataset(path)
             if ds.attrs.get("config") == text:
-                _log(f"reusing {path.name} (same config)")
+                status(f"reusing {path.name} (same config)")
                 return ds
         except InputError:
             pass
@@ -80,9 +75,7 @@ def _reuse_or_run(path: Path, cfg: Config, make):
 
 def run_compare(cfg: Config, outdir, *, progress=None, coefficients_file=None):
     """Run the full comparison; see the module docstring for the files written."""
-    from ._cli import _ensure_dir
-
-    outdir = _ensure_dir(outdir)
+    outdir = ensure_dir(outdir)
     cfg = compare_config(cfg)
     observe = analysis("observe")
     coarse_grain = analysis("coarse_grain")
@@ -101,14 +94,14 @@ def run_compare(cfg: Config, outdir, *, progress=None, coefficients_file=None):
 
     out = CompareOutcome(outdir)
     runs, obs = {}, {}
-    _log("running the particle engine")
+    status("running the particle engine")
     runs["agents"] = _reuse_or_run(outdir / "agents.nc", cfg,
                                    lambda: run_engine(cfg, "agents", progress=progress))
-    _log("coarse-graining the particles")
+    status("coarse-graining the particles")
     runs["agents_fields"] = _reuse_or_run(outdir / "agents_fields.nc", cfg,
                                           lambda: coarse_grain(runs["agents"]))
     for name, vcfg in variants.items():
-        _log(f"running the continuum engine ({name})")
+        status(f"running the continuum engine ({name})")
         runs[name] = _reuse_or_run(
             outdir / f"{name}.nc", vcfg,
             lambda vcfg=vcfg: run_engine(vcfg, "continuum", progress=progress))
@@ -138,5 +131,5 @@ def run_compare(cfg: Config, outdir, *, progress=None, coefficients_file=None):
     out.verdict = str(mismatch.attrs.get("verdict", "not resolved"))
     out.reason = str(mismatch.attrs.get("reason", ""))
     out.mismatch = mismatch
-    _log(f"verdict: {out.verdict} ({out.reason}); report: {out.report}")
+    status(f"verdict: {out.verdict} ({out.reason}); report: {out.report}")
     return out

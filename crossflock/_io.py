@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import sys
 import tempfile
 from pathlib import Path
 
@@ -20,7 +21,24 @@ from ._errors import CrossflockError, InputError
 from ._version import FORMAT_VERSION
 
 __all__ = ["write_dataset", "read_dataset", "dataset_config", "check_writable",
-           "atomic_write_text", "atomic_path"]
+           "atomic_write_text", "atomic_path", "ensure_dir", "status"]
+
+
+def status(msg: str) -> None:
+    """A one-line progress message on stderr (stdout carries results)."""
+    print(f"crossflock: {msg}", file=sys.stderr, flush=True)
+
+
+def ensure_dir(path) -> Path:
+    """Create an output folder (refusing a file in its place)."""
+    path = Path(path)
+    if path.exists() and not path.is_dir():
+        raise InputError(f"output {str(path)!r} exists and is not a directory")
+    try:
+        path.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create output folder {str(path)!r}: {exc.strerror}") from None
+    return path
 
 
 def check_writable(path) -> Path:

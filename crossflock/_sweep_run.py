@@ -28,7 +28,7 @@ import xarray as xr
 from ._build import annotate, global_attrs
 from ._config import config_from_toml, config_to_toml
 from ._errors import CrossflockError, InputError
-from ._io import read_dataset, write_dataset
+from ._io import read_dataset, status, write_dataset
 from ._sweep import Sweep, Task, axis_names
 
 __all__ = ["run_sweep", "run_point", "combine", "SweepSummary"]
@@ -89,14 +89,15 @@ def run_point(payload: dict) -> dict:
     return {"name": payload["name"], "status": "done", "reason": ""}
 
 
-def _finished(path: Path, key: str) -> bool:
+def _load_point(path: Path, key: str):
+    """The point file's Dataset when it is a finished result of task ``key``, else None."""
     if not path.exists():
-        return False
+        return None
     try:
         ds = read_dataset(path, kind="sweep")
     except InputError:
-        return False
-    return ds.attrs.get("task_key") == key
+        return None
+    return ds if ds.attrs.get("task_key") == key else None
 
 
 def _client(workers, scheduler, threads):
@@ -128,7 +129,7 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
     """Run every unfinished task of ``sweep`` and write ``DIR/sweep.nc`` and figures."""
     from dask.distributed import as_completed
 
-    log = log or (lambda msg: print(f"crossflock: {msg}", file=sys.stderr, flush=True))
+    log = log or status
     start = time.perf_counter()
     outdir = Path(outdir)
     (outdir / "points").mkdir(parents=True, exist_ok=True)
@@ -140,7 +141,7 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
     todo = []
     for task in tasks:
         path = _point_file(outdir, task)
-        if _finished(path, task.key):
+        if _load_point(path, task.key) is not None:
             summary.skipped += 1
         else:
             todo.append(task)
@@ -178,7 +179,7 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
             client.close()
             if cluster is not None:
                 cluster.close()
-    ds = combine(sweep, outdir)
+    ds = combine(sweep, outdir, tasks)
     summary.output = write_dataset(ds, outdir / "sweep.nc")
     summary.seconds = time.perf_counter() - start
     try:
@@ -206,19 +207,21 @@ def _bar(total, progress):
     return tqdm(total=total, desc="sweep points", unit="task", file=sys.stderr)
 
 
-def combine(sweep: Sweep, outdir) -> xr.Dataset:
-    """Gather the point files into one Dataset with dims (axis..., seed)."""
+def combine(sweep: Sweep, outdir, tasks=None) -> xr.Dataset:
+    """Gather the point files into one Dataset with dims (axis..., seed).
+
+    ``tasks`` defaults to ``sweep.tasks()`` (pass them to avoid expanding twice).
+    """
     outdir = Path(outdir)
     keys = list(sweep.axes)
     dims = axis_names(keys) + ["seed"]
     shape = sweep.shape + (sweep.seeds,)
     values: dict[str, np.ndarray] = {}
     done = np.zeros(shape, dtype=np.int8)
-    for task in sweep.tasks():
-        path = _point_file(outdir, task)
-        if not _finished(path, task.key):
+    for task in tasks if tasks is not None else sweep.tasks():
+        ds = _load_point(_point_file(outdir, task), task.key)
+        if ds is None:
             continue
-        ds = read_dataset(path, kind="sweep")
         where = task.index + (task.seed_index,)
         for name, var in ds.data_vars.items():
             arr = values.setdefault(str(name), np.full(shape, np.nan))

@@ -46,3 +46,21 @@ def run_cli(*args, cwd=None, timeout=300):
 @pytest.fixture
 def cli():
     return run_cli
+
+
+def results_per_thread_count(run):
+    """``run(n)`` with numba at 1 thread and at its maximum; the list of results.
+
+    The thread count is restored afterwards, so tests can compare results bit for bit.
+    """
+    import numba
+
+    before = numba.get_num_threads()
+    out = []
+    try:
+        for n in sorted({1, numba.config.NUMBA_NUM_THREADS}):
+            numba.set_num_threads(n)
+            out.append(run(n))
+    finally:
+        numba.set_num_threads(before)
+    return out

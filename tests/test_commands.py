@@ -15,7 +15,6 @@ from tests.conftest import small_mapping
 
 def _tiny(tmp_path, **sections):
     mapping = small_mapping(**sections)
-    mapping["domain"].setdefault("size", [12.0, 12.0])
     if "size" not in sections.get("domain", {}):
         mapping["domain"]["size"] = [12.0, 12.0]
     if "grid" not in sections.get("continuum", {}):

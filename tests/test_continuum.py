@@ -18,6 +18,7 @@ from crossflock.continuum import (
     resolve_method,
     simulate,
 )
+from tests.conftest import results_per_thread_count
 
 ACTIVE = {"alpha": 1.0, "alpha_rho": 0.5, "beta": 1.0, "pressure": [0.5, 0.1],
           "D_T": 0.5, "D_B": 0.2, "D_2": 0.05, "lambda1": 0.4, "lambda2": 0.2,
@@ -372,8 +373,6 @@ def test_blowup_guard_from_unbounded_coefficients():
 
 @pytest.mark.parametrize("method", ["spectral", "finite_difference"])
 def test_result_independent_of_thread_count(method, monkeypatch):
-    import numba
-
     from crossflock.continuum import _fd, _solver
 
     # force the parallel kernels even on this small grid
@@ -381,15 +380,8 @@ def test_result_independent_of_thread_count(method, monkeypatch):
     monkeypatch.setattr(_fd, "SERIAL_BELOW", 0)
     coeffs = dict(ACTIVE, noise_strength=0.01)
     cfg = _cfg(continuum={"method": method, "coefficients": coeffs})
-    before = numba.get_num_threads()
-    out = []
-    try:
-        for n in sorted({1, numba.config.NUMBA_NUM_THREADS}):
-            numba.set_num_threads(n)
-            s = METHODS[method](cfg, workers=n)
-            out.append(np.stack(_run(s, 50)))
-    finally:
-        numba.set_num_threads(before)
+    out = results_per_thread_count(
+        lambda n: np.stack(_run(METHODS[method](cfg, workers=n), 50)))
     for other in out[1:]:
         np.testing.assert_array_equal(other, out[0])
 

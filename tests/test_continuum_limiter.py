@@ -11,6 +11,7 @@ from crossflock.continuum import METHODS, simulate
 from crossflock.continuum._coefficients import CoefficientModel
 from crossflock.continuum._driver import _linear_instability_hint
 from crossflock.continuum._limiter import apply_realizability
+from tests.conftest import results_per_thread_count
 
 
 def _kinetic_cfg(method="finite_difference", noise=0.3, **continuum):
@@ -178,24 +179,20 @@ def test_no_instability_hint_inside_the_stable_window():
 
 @pytest.mark.parametrize("method", ["finite_difference", "spectral"])
 def test_limited_run_independent_of_thread_count(method, monkeypatch):
-    import numba
-
     from crossflock.continuum import _fd, _solver
 
     # force the parallel kernels even on this small grid
     monkeypatch.setattr(_solver, "SMALL_GRID", 0)
     monkeypatch.setattr(_fd, "SERIAL_BELOW", 0)
     cfg = _kinetic_cfg(method, kinetic_noise="auto")
-    before = numba.get_num_threads()
-    out = []
-    try:
-        for n in sorted({1, numba.config.NUMBA_NUM_THREADS}):
-            numba.set_num_threads(n)
-            s = METHODS[method](cfg, workers=n)
-            out.append(np.stack(_run(s, 100)))
-            assert s.limited_cells > 0
-    finally:
-        numba.set_num_threads(before)
+
+    def run(n):
+        s = METHODS[method](cfg, workers=n)
+        fields = np.stack(_run(s, 100))
+        assert s.limited_cells > 0
+        return fields
+
+    out = results_per_thread_count(run)
     for other in out[1:]:
         np.testing.assert_array_equal(other, out[0])
 
