@@ -22,6 +22,7 @@ from .._schema import to_mapping
 from .._stability import _method, stability_limit
 from ._dispersion import max_growth
 from ._fd import FiniteDifferenceSolver
+from ._guard import NEGATIVE_DENSITY_TOL, check_state
 from ._spectral import SpectralSolver
 
 __all__ = ["METHODS", "resolve_method", "make_solver", "simulate", "check_state",
@@ -29,12 +30,8 @@ __all__ = ["METHODS", "resolve_method", "make_solver", "simulate", "check_state"
 
 METHODS = {"spectral": SpectralSolver, "finite_difference": FiniteDifferenceSolver}
 
-# A density below -NEGATIVE_DENSITY_TOL * rho0 is a failure, not an undershoot: central
-# and spectral derivatives overshoot a little at sharp fronts when D_rho = 0.
-NEGATIVE_DENSITY_TOL = 1e-2
 # |w| beyond BLOWUP_FACTOR * (rho0 + homogeneous |w| at 2 rho0) is a blow-up.
 BLOWUP_FACTOR = 100.0
-GUARD_EVERY = 10  # steps between guard checks (and at every sample)
 
 
 def resolve_method(cfg) -> str:
@@ -54,20 +51,6 @@ def _w_bound(solver) -> float:
     beta = coef.get("beta") if not coef.kinetic else float(coef.reference["beta"])
     w_hom = np.sqrt(alpha / beta) if alpha > 0 and beta > 0 else 0.0
     return BLOWUP_FACTOR * (rho0 + w_hom)
-
-
-def check_state(rho, wx, wy, rho0, w_bound):
-    """Name of the failure in a state, or None when it is sound."""
-    total = float(np.sum(rho)) + float(np.sum(wx * wx + wy * wy))
-    if not np.isfinite(total):
-        return "NaN or Inf in the fields"
-    rmin = float(np.min(rho))
-    if rmin < -NEGATIVE_DENSITY_TOL * rho0:
-        return f"negative density {rmin:.3g}"
-    wmax = float(np.sqrt(np.max(wx * wx + wy * wy)))
-    if wmax > w_bound:
-        return f"|w| = {wmax:.3g} beyond the blow-up bound {w_bound:.3g}"
-    return None
 
 
 def _order(rho, wx, wy):
@@ -239,20 +222,21 @@ def simulate(cfg=None, *, progress=None, checkpoint=None, resume=None, dt=None,
     ck_samples = max(1, round(every / cfg.run.sample_every)) if every > 0 else 0
     w_bound = _w_bound(solver)
     rho0 = cfg.model.density
-    last_good = (solver.time, solver.fields())
-    guard_every = max(1, min(GUARD_EVERY, plan.steps_per_sample))
+    solver.keep_good()
+    guard_every = max(1, min(solver.guard_steps, plan.steps_per_sample))
     bar = _progress_bar(progress, plan.n_steps - start * plan.steps_per_sample)
     try:
         for index in range(start + 1, plan.n_samples):
-            for k in range(1, plan.steps_per_sample + 1):
-                solver.step()
-                if k % guard_every == 0 or k == plan.steps_per_sample:
-                    fields = solver.fields()
-                    cause = check_state(*fields, rho0, w_bound)
-                    if cause is not None:
-                        solver.status = "failed"
-                        raise _diverged(cfg, solver, cause, rec, last_good)
-                    last_good = (solver.time, fields)
+            done = 0
+            while done < plan.steps_per_sample:
+                n = min(guard_every, plan.steps_per_sample - done)
+                solver.advance(n)
+                done += n
+                cause = solver.health(rho0, w_bound)
+                if cause is not None:
+                    solver.status = "failed"
+                    raise _diverged(cfg, solver, cause, rec, solver.last_good())
+                solver.keep_good()
             rec.record(index)
             if bar is not None:
                 bar.update(plan.steps_per_sample)

@@ -37,6 +37,7 @@ import numpy as np
 from .._geometry import geometry_from_config, grid_coords, grid_mask
 from .._runtime import rng_for
 from ._coefficients import CoefficientModel
+from ._guard import check_state
 from ._limiter import apply_realizability
 
 # grids smaller than this step on one numba thread (see ContinuumSolver.step)
@@ -69,7 +70,7 @@ def initial_fields(cfg, mask: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.nd
 
 
 class ContinuumSolver:
-    """Base class: a continuum solver advanced by :meth:`step`.
+    """Base class: a continuum solver advanced by :meth:`step` (or :meth:`advance`).
 
     Parameters
     ----------
@@ -93,6 +94,7 @@ class ContinuumSolver:
     """
 
     name = ""
+    guard_steps = 10  # steps between the driver's health checks
 
     def __init__(self, cfg, *, dt=None, initial=None, workers=None):
         self.cfg = cfg
@@ -114,6 +116,8 @@ class ContinuumSolver:
         real = cfg.continuum.realizability
         self.realizability = self.coef.kinetic if real == "auto" else bool(real)
         self.limited_cells = 0
+        self._checked = None
+        self._good = None
         self._fluid8 = np.ascontiguousarray(self.mask, dtype=np.uint8)
         self._noise_amp = math.sqrt(2.0 * self.coef.noise_strength * self.dt
                                     / (self.dx * self.dy))
@@ -132,8 +136,19 @@ class ContinuumSolver:
     # ------------------------------------------------------------------ public
     def step(self) -> str:
         """Advance one time step; returns :attr:`status`."""
+        return self.advance(1)
+
+    def advance(self, nsteps: int) -> str:
+        """Advance ``nsteps`` time steps; returns :attr:`status`.
+
+        The same result as ``nsteps`` calls of :meth:`step`, bit for bit; a method may
+        take several steps per pass over memory (see ``_fd``).
+        """
         if self.status != "running":
             raise RuntimeError(f"solver is {self.status}; cannot step")
+        nsteps = int(nsteps)
+        if nsteps < 0:
+            raise ValueError(f"nsteps must be >= 0 (got {nsteps})")
         nx, ny = self.cfg.continuum.grid
         if nx * ny < SMALL_GRID and numba.get_num_threads() > 1:
             # waking the thread pool costs more than it saves on small grids (and much
@@ -141,18 +156,40 @@ class ContinuumSolver:
             threads = numba.get_num_threads()
             numba.set_num_threads(1)
             try:
-                self._step_impl()
+                self._advance_impl(nsteps)
             finally:
                 numba.set_num_threads(threads)
         else:
-            self._step_impl()
-        self.n_steps += 1
-        self.time = self.n_steps * self.dt
+            self._advance_impl(nsteps)
         return self.status
 
     def fields(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Current ``rho, wx, wy`` as ``(ny, nx)`` real arrays (copies)."""
         raise NotImplementedError
+
+    def health(self, rho0: float, w_bound: float) -> str | None:
+        """Name of the failure of the current state, or None when it is sound.
+
+        See :mod:`._guard`: NaN or Inf, density below ``-NEGATIVE_DENSITY_TOL rho0``,
+        ``|w|`` above ``w_bound``.
+        """
+        fields = self.fields()
+        self._checked = (self.n_steps, fields)
+        return check_state(*fields, rho0, w_bound)
+
+    def keep_good(self) -> None:
+        """Remember the current state as the last good one (see :meth:`last_good`)."""
+        if self._checked is not None and self._checked[0] == self.n_steps:
+            fields = self._checked[1]
+        else:
+            fields = self.fields()
+        self._good = (self.time, fields)
+
+    def last_good(self) -> tuple[float, tuple[np.ndarray, np.ndarray, np.ndarray]]:
+        """``(time, (rho, wx, wy))`` of the state of the last :meth:`keep_good`."""
+        if self._good is None:
+            raise RuntimeError("no state was kept (call keep_good first)")
+        return self._good
 
     def get_state(self) -> dict:
         """Everything needed to continue bit-identically (arrays, counters, RNG)."""
@@ -190,6 +227,16 @@ class ContinuumSolver:
         return dw
 
     # ------------------------------------------------------------------ subclass API
+    def _advance_impl(self, nsteps: int) -> None:
+        """Take ``nsteps`` steps and count them (default: one :meth:`_step_impl` each)."""
+        for _ in range(nsteps):
+            self._step_impl()
+            self._count(1)
+
+    def _count(self, nsteps: int) -> None:
+        self.n_steps += nsteps
+        self.time = self.n_steps * self.dt
+
     def _setup(self) -> None:
         raise NotImplementedError
 

@@ -195,28 +195,3 @@ def test_limited_run_independent_of_thread_count(method, monkeypatch):
     out = results_per_thread_count(run)
     for other in out[1:]:
         np.testing.assert_array_equal(other, out[0])
-
-
-@pytest.mark.parametrize("channel", [False, True])
-def test_serial_and_parallel_fd_kernels_bit_identical(channel):
-    # small grids step with the serial kernel (continuum._fd.SERIAL_BELOW); both must
-    # agree exactly, including the fused SBDF2 update and the wall ghosts
-    from crossflock.continuum._fd import fd_rhs_kernel, fd_rhs_kernel_serial, interior_mask
-
-    rng = np.random.default_rng(9)
-    ny, nx = 24, 20
-    rho, wx, wy = 1.0 + 0.1 * rng.standard_normal((3, ny, nx))
-    fluid = np.ones((ny, nx), np.uint8)
-    fluid[8:12, 5:9] = 0
-    cs = rng.uniform(0.1, 1.0, 12)
-    local = rng.uniform(0.1, 1.0, (6, ny, nx))
-    pressure = np.array([0.5, 0.1])
-    u_prev, n_prev = rng.standard_normal((2, 3, ny, nx))
-    outs = []
-    for kernel in (fd_rhs_kernel, fd_rhs_kernel_serial):
-        out, u_new = np.zeros((3, ny, nx)), np.zeros((3, ny, nx))
-        kernel(rho, wx, wy, fluid, interior_mask(fluid, channel), channel, 0.5, 0.5, cs,
-               local, True, pressure, True, out, True, u_prev, n_prev, 0.01, False, u_new)
-        outs.append((out, u_new))
-    for a, b in zip(outs[0], outs[1], strict=True):
-        assert np.array_equal(a, b)

@@ -1,0 +1,375 @@
+"""Compiled kernels of the finite-difference method (pure functions on arrays).
+
+The grid is cell-centred, with solid cells for discs and walls. Derivatives are
+second-order central differences. A neighbour that is solid (a cell inside a disc, or
+beyond a channel wall at y = 0 or Ly, which sit on cell faces) is replaced by a ghost
+value mirrored through the shared face:
+
+* w: ghost = -w (no-slip, w = 0 on the face);
+* rho: ghost = +rho (zero normal gradient, so no diffusive flux through the face).
+
+With these ghosts the central divergence ``(w_E - w_W) / 2dx`` equals the finite-volume
+flux difference with face values ``(w_i + w_{i+1}) / 2``, and the face flux is exactly 0
+on solid faces, so the total density changes only by round-off. Solid cells hold
+rho = w = 0 and are never updated.
+
+Time stepping
+-------------
+The fully explicit member of the SBDF2 family (see ``_solver``), written with one history
+field ``h`` in place of the previous state and right-hand side, as an increment::
+
+    u^{n+1} = u^n + (u^n + h^n + 4 dt N^n) / 3 + (2/3) dW^n,    h^{n+1} = -u^n - 2 dt N^n,
+
+which is ``(3 u^{n+1} - 4 u^n + u^{n-1}) / 2 = dt (2 N^n - N^{n-1}) + dW^n`` with
+``h^n = -u^{n-1} - 2 dt N^{n-1}``. The first step is forward Euler,
+``u^1 = u^0 + dt N^0 + dW^0``. Its limits (waves, reaction, explicit diffusion) are
+checked by :func:`crossflock._stability.check_continuum_dt`.
+
+Temporal blocking
+-----------------
+One explicit step couples a row only to the rows next to it, so K steps of a band of rows
+depend only on that band widened by K rows. :func:`fd_advance_kernel` advances K steps
+in one pass over memory: each band streams its widened rows through a wavefront of ring
+buffers (level s holds the last three rows of step s, small enough for the core's cache)
+and writes the band's rows after step K. The state is read and written once per K steps
+instead of once per step; one step per pass is limited by memory bandwidth on grids
+larger than the cache (measured in ``benchmarks/bench_continuum.py``). Rows of the
+widened margins are computed by both bands that need them, with the same arithmetic, so
+the result does not depend on the number of bands (threads) nor on K: ``advance(K)``
+equals K calls of ``step()`` bit for bit.
+
+References
+----------
+D. Wonnacott, time skewing (IPDPS 2000; title and venue from memory): blocking several
+time steps of an explicit stencil so that the cache, not memory, feeds the arithmetic.
+T. Muranushi & J. Makino, "Optimal Temporal Blocking for Stencil Computation", Procedia
+Computer Science 51, 1303 (2015): the bytes-per-flop reduction it buys and its limit.
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+from numba import prange
+
+from . import _terms
+from ._guard import field_stats
+
+__all__ = ["fd_advance_kernel", "fd_advance_kernel_serial", "PAR", "KIN"]
+
+# Layout of the per-call scalar vector ``par`` handed to the kernels.
+PAR = ("dx", "dy", "dt", "noise_amp")
+# Layout of the kinetic-form vector ``kin`` (see CoefficientModel.kinetic_vector).
+KIN = ("q_a", "q_b", "alpha_slope", "alpha_offset", "beta", "D_T", "lambda1", "lambda2",
+       "lambda3")
+
+# Optional inputs are passed as None when absent (no noise, no history for a bare
+# right-hand side, no fluid rows for an all-fluid row, no kinetic form, only the minimal
+# terms): numba compiles a separate version per combination with the unused branches
+# removed, which keeps the inner loop free of tests so that it vectorizes. Fused
+# multiply-adds are allowed ("contract"); nothing else of fast-math, so NaN and Inf still
+# propagate to the driver's guard.
+_FASTMATH = {"contract"}
+
+
+@numba.njit(cache=True, inline="always")
+def _ghost4(a, b, c, d, fa, fb, fc, fd, mirror):
+    """Four neighbour values under the ghost rule: a solid one (flag 0) reads ``mirror``."""
+    return (a if fa else mirror, b if fb else mirror, c if fc else mirror,
+            d if fd else mirror)
+
+
+@numba.njit(cache=True, inline="always")
+def _solid_zero(a, b, c, fluid):
+    """``(a, b, c)``, or zeros in a solid cell."""
+    return (a, b, c) if fluid else (0.0, 0.0, 0.0)
+
+
+@numba.njit(cache=True, fastmath=_FASTMATH)
+def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_lin,
+         pressure, par, g):
+    """One row of one step: stencil, right-hand side and SBDF2 update.
+
+    Whole arrays and indices are passed rather than row views: a view costs a reference
+    count update on the shared array, an atomic operation that the threads would contend
+    for on every row.
+
+    Parameters
+    ----------
+    ring : (nsteps + 1, 3, 3, stride) float64 ndarray
+        Ring rows of every step of the band. Step ``lv`` slots ``sa``, ``sb``, ``sc``
+        hold rows j-1, j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and
+        nx + 1 the periodic copies of columns nx and 1. Written: step ``lv + 1``, slot
+        ``sb`` (columns 0..nx + 1).
+    fl : (ny + 2, nx + 2) uint8 ndarray or None
+        Padded fluid mask (rows j..j + 2 are the fluid rows j-1..j+1); None when the
+        stencil of row j is all fluid.
+    j : int
+        The row (for ``fl`` and ``noise``).
+    hring : (nsteps + 1, 1, 3, stride) float64 ndarray
+        History rows; row ``hs`` is updated in place.
+    noise : (nsteps, 2, ny, nx) float64 ndarray or None
+        Standard normal noise; ``noise[lv, :, j]`` is used.
+    nx : int
+    cs : (12,) float64 ndarray
+        ``_coefficients.SCALARS``.
+    kin : (9,) float64 ndarray or None
+        Kinetic form (:data:`KIN`); None for table coefficients.
+    extra : None or int
+        None: the minimal equations (alignment with alpha(rho), linear pressure, D_T),
+        compiled without the other terms; else all terms (:func:`._fd.extra_terms`).
+    p_lin : float
+        P'(rho) of a linear pressure (used when ``extra`` is None).
+    pressure : (K,) float64 ndarray
+        Pressure polynomial (used otherwise).
+    par : (4,) float64 ndarray
+        :data:`PAR`.
+    g : (nsteps, 6) float64 ndarray
+        Row ``lv``: ``(c_1, c_u, c_h, c_n, c_s, c_xi)`` of the update
+        ``u' = c_1 u + (c_u u + c_h h + c_n N) c_s + c_xi amp xi`` and
+        ``h' = -u - 2 dt N`` (:func:`._fd.scheme_table`).
+    """
+    dx, dy, dt, amp = par[0], par[1], par[2], par[3]
+    idx2 = 1.0 / (dx * dx)
+    idy2 = 1.0 / (dy * dy)
+    i2dx = 0.5 / dx
+    i2dy = 0.5 / dy
+    i4dxdy = 0.25 / (dx * dy)
+    dt2 = 2.0 * dt
+    c_1, c_u, c_h, c_n, c_s = g[lv, 0], g[lv, 1], g[lv, 2], g[lv, 3], g[lv, 4]
+    c_xi = g[lv, 5] * amp
+    out = lv + 1
+    alpha0, alpha_rho, beta_t, d_t_t = cs[0], cs[1], cs[2], cs[3]
+    lam1_t, lam2_t, lam3_t, d_b, d_2, d_rho, v0, rho0 = (cs[4], cs[5], cs[6], cs[7], cs[8],
+                                                          cs[9], cs[10], cs[11])
+    q_a = q_b = a_slope = a_off = k_beta = k_dt = k_l1 = k_l2 = k_l3 = 0.0
+    if kin is not None:
+        q_a, q_b, a_slope, a_off = kin[0], kin[1], kin[2], kin[3]
+        k_beta, k_dt, k_l1, k_l2, k_l3 = kin[4], kin[5], kin[6], kin[7], kin[8]
+    for i in range(1, nx + 1):
+        r = ring[lv, sb, 0, i]
+        ux = ring[lv, sb, 1, i]
+        uy = ring[lv, sb, 2, i]
+        rE, rW = ring[lv, sb, 0, i + 1], ring[lv, sb, 0, i - 1]
+        rN, rS = ring[lv, sc, 0, i], ring[lv, sa, 0, i]
+        xE, xW = ring[lv, sb, 1, i + 1], ring[lv, sb, 1, i - 1]
+        xN, xS = ring[lv, sc, 1, i], ring[lv, sa, 1, i]
+        yE, yW = ring[lv, sb, 2, i + 1], ring[lv, sb, 2, i - 1]
+        yN, yS = ring[lv, sc, 2, i], ring[lv, sa, 2, i]
+        if fl is not None:  # ghost rule: rho mirrored, w mirrored with a sign change
+            fE, fW, fN, fS = fl[j + 1, i + 1], fl[j + 1, i - 1], fl[j + 2, i], fl[j, i]
+            rE, rW, rN, rS = _ghost4(rE, rW, rN, rS, fE, fW, fN, fS, r)
+            xE, xW, xN, xS = _ghost4(xE, xW, xN, xS, fE, fW, fN, fS, -ux)
+            yE, yW, yN, yS = _ghost4(yE, yW, yN, yS, fE, fW, fN, fS, -uy)
+        if kin is None:
+            alpha = alpha0 + alpha_rho * (r - rho0)
+            beta, d_t, lam1, lam2, lam3 = beta_t, d_t_t, lam1_t, lam2_t, lam3_t
+        else:  # Bertin-Droz-Gregoire coefficients at the local density
+            rp = max(r, 0.0)
+            q = 1.0 / (q_a + q_b * rp)
+            alpha = rp * a_slope + a_off
+            beta, d_t, lam1, lam2, lam3 = q * k_beta, q * k_dt, q * k_l1, q * k_l2, q * k_l3
+        if extra is None:
+            slope = p_lin
+        else:
+            slope = _terms.pressure_slope(r - rho0, pressure)
+        gxx = (xE - xW) * i2dx
+        gyy = (yN - yS) * i2dy
+        gyx = (xN - xS) * i2dy
+        gxy = (yE - yW) * i2dx
+        hxx_x = (xE + xW - 2.0 * ux) * idx2
+        hyy_x = (xN + xS - 2.0 * ux) * idy2
+        hxx_y = (yE + yW - 2.0 * uy) * idx2
+        hyy_y = (yN + yS - 2.0 * uy) * idy2
+        hxy_x = hxy_y = lap_r = 0.0
+        if extra is None:  # constants: the terms fold away at compile time
+            lam1 = lam2 = lam3 = c_db = c_d2 = c_drho = 0.0
+        else:
+            c_db, c_d2, c_drho = d_b, d_2, d_rho
+            lap_r = (rE + rW - 2.0 * r) * idx2 + (rN + rS - 2.0 * r) * idy2
+            xNE, xNW = ring[lv, sc, 1, i + 1], ring[lv, sc, 1, i - 1]
+            xSE, xSW = ring[lv, sa, 1, i + 1], ring[lv, sa, 1, i - 1]
+            yNE, yNW = ring[lv, sc, 2, i + 1], ring[lv, sc, 2, i - 1]
+            ySE, ySW = ring[lv, sa, 2, i + 1], ring[lv, sa, 2, i - 1]
+            if fl is not None:
+                fNE, fNW, fSE, fSW = fl[j + 2, i + 1], fl[j + 2, i - 1], fl[j, i + 1], fl[j, i - 1]
+                xNE, xNW, xSE, xSW = _ghost4(xNE, xNW, xSE, xSW, fNE, fNW, fSE, fSW, -ux)
+                yNE, yNW, ySE, ySW = _ghost4(yNE, yNW, ySE, ySW, fNE, fNW, fSE, fSW, -uy)
+            hxy_x = (xNE - xNW - xSE + xSW) * i4dxdy
+            hxy_y = (yNE - yNW - ySE + ySW) * i4dxdy
+        fx, fy = _terms.momentum(
+            ux, uy, (rE - rW) * i2dx, (rN - rS) * i2dy, gxx, gxy, gyx, gyy,
+            hxx_x + hyy_x, hxx_y + hyy_y, hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
+            alpha, beta, lam1, lam2, lam3, d_t, c_db, c_d2, slope)
+        n0 = _terms.continuity(gxx + gyy, lap_r, v0, c_drho)
+        a0 = c_1 * r + (c_u * r + c_h * hring[hs, 0, 0, i] + c_n * n0) * c_s
+        a1 = c_1 * ux + (c_u * ux + c_h * hring[hs, 0, 1, i] + c_n * fx) * c_s
+        a2 = c_1 * uy + (c_u * uy + c_h * hring[hs, 0, 2, i] + c_n * fy) * c_s
+        if noise is not None:
+            a1 += c_xi * noise[lv, 0, j, i - 1]
+            a2 += c_xi * noise[lv, 1, j, i - 1]
+        b0 = -r - dt2 * n0
+        b1 = -ux - dt2 * fx
+        b2 = -uy - dt2 * fy
+        if fl is not None:  # solid cells stay 0
+            b0, b1, b2 = _solid_zero(b0, b1, b2, fl[j + 1, i] != 0)
+        hring[hs, 0, 0, i] = b0
+        hring[hs, 0, 1, i] = b1
+        hring[hs, 0, 2, i] = b2
+        if fl is not None:
+            a0, a1, a2 = _solid_zero(a0, a1, a2, fl[j + 1, i] != 0)
+        ring[out, sb, 0, i] = a0
+        ring[out, sb, 1, i] = a1
+        ring[out, sb, 2, i] = a2
+    for c in range(3):  # periodic copies in x
+        ring[out, sb, c, 0] = ring[out, sb, c, nx]
+        ring[out, sb, c, nx + 1] = ring[out, sb, c, 1]
+
+
+@numba.njit(cache=True)
+def _load_row(src, j, dst, a, b):
+    """Copy ``src[:, j, :]`` into ``dst[a, b, :, 1:nx+1]``, with the periodic copies in
+    columns 0 and nx + 1."""
+    nx = src.shape[2]
+    for c in range(src.shape[0]):
+        for i in range(nx):
+            dst[a, b, c, i + 1] = src[c, j, i]
+        dst[a, b, c, 0] = src[c, j, nx - 1]
+        dst[a, b, c, nx + 1] = src[c, j, 0]
+
+
+@numba.njit(cache=True)
+def _store_row(src, a, b, dst, j):
+    """Copy ``src[a, b, :, 1:nx+1]`` into ``dst[:, j, :]``.
+
+    Returns ``(finite, min of field 0, max of field 1^2 + field 2^2)`` of the row: the
+    guard statistics (:mod:`._guard`) when the row is a state ``(rho, w_x, w_y)``.
+    """
+    nx = dst.shape[2]
+    for c in range(dst.shape[0]):
+        for i in range(nx):
+            dst[c, j, i] = src[a, b, c, i + 1]
+    return field_stats(dst[0, j:j + 1], dst[1, j:j + 1], dst[2, j:j + 1])
+
+
+@numba.njit(cache=True)
+def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, cs, kin,
+          extra, p_lin, pressure, par, noise, ring, hring, stats):
+    """Advance rows ``[lo, hi)`` by ``nsteps`` steps (wavefront over the widened band).
+
+    ``ring`` : (nsteps + 1, 3, 3, stride) rows of each step (3 ring slots per step);
+    ``hring`` : (nsteps + 1, 1, 3, stride) history rows in flight. ``stats`` (3,):
+    written with the guard statistics ``(finite, min rho, max |w|^2)`` of the band's
+    output rows.
+    """
+    finite = True
+    rmin = np.inf
+    w2max = 0.0
+    ny, nx = u_in.shape[1], u_in.shape[2]
+    k = nsteps
+    if channel:
+        r_lo = max(lo - k, 0)
+        r_hi = min(hi + k, ny)
+    else:
+        r_lo = lo - k
+        r_hi = hi + k
+    wall_lo = channel and r_lo == 0
+    wall_hi = channel and r_hi == ny
+    nh = k + 1
+    for t in range(r_lo, r_hi + k):
+        for s in range(k + 1):
+            r = t - s  # row r of step s: needs rows r-1, r, r+1 of step s-1, all done
+            lo_s = r_lo if wall_lo else r_lo + s
+            hi_s = r_hi if wall_hi else r_hi - s
+            if r < lo_s or r >= hi_s:
+                continue
+            j = r % ny
+            hs = r % nh
+            if s == 0:
+                _load_row(u_in, j, ring, 0, r % 3)
+                _load_row(h_in, j, hring, hs, 0)
+                continue
+            # rows j-1, j, j+1 of step s-1 sit in ring slots (r-1) % 3, r % 3, (r+1) % 3
+            if plain[j]:
+                _row(ring, s - 1, (r - 1) % 3, r % 3, (r + 1) % 3, None, j, hring, hs, noise, nx,
+                     cs, kin, extra, p_lin, pressure, par, scheme)
+            else:
+                _row(ring, s - 1, (r - 1) % 3, r % 3, (r + 1) % 3, fl, j, hring, hs, noise, nx,
+                     cs, kin, extra, p_lin, pressure, par, scheme)
+            if s == k and lo <= r < hi:
+                ok, row_min, row_max = _store_row(ring, s, r % 3, u_out, j)
+                finite = finite and ok
+                rmin = min(rmin, row_min)
+                w2max = max(w2max, row_max)
+                _store_row(hring, hs, 0, h_out, j)
+    stats[0] = 1.0 if finite else 0.0
+    stats[1] = rmin
+    stats[2] = w2max
+
+
+@numba.njit(cache=True, parallel=True)
+def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nsteps, scheme,
+                      cs, kin, extra, p_lin, pressure, par, noise, ring, hring, stats):
+    """Advance the masked-grid state ``nsteps`` explicit SBDF2 steps (bands in parallel).
+
+    Parameters
+    ----------
+    u_in : (3, ny, nx) float64 ndarray
+        State ``(rho, w_x, w_y)`` (read only).
+    h_in : (3, ny, nx) float64 ndarray
+        SBDF2 history (read only).
+    u_out, h_out : (3, ny, nx) float64 ndarray
+        Written: state and history after ``nsteps`` steps (0 in solids).
+    fl : (ny + 2, nx + 2) uint8 ndarray
+        Fluid mask padded by one cell (:func:`._fd.padded_fluid`).
+    plain : (ny,) uint8 ndarray
+        1 where rows j-1, j, j+1 are all fluid (:func:`._fd.plain_rows`).
+    channel : bool
+        Walls beyond rows 0 and ny - 1 (else periodic in y); always periodic in x.
+    starts : (nb + 1,) int64 ndarray
+        Band boundaries (:func:`._fd.band_starts`); the result does not depend on them.
+    nsteps : int
+    scheme : (nsteps, 5) float64 ndarray
+        Per step ``(c_1, c_u, c_h, c_n, c_s, c_xi)`` (:func:`._fd.scheme_table`); the
+        row of :func:`._fd.rhs_scheme` writes the right-hand side of ``u_in`` instead.
+    cs : (12,) float64 ndarray
+        Scalars in the order of ``_coefficients.SCALARS``.
+    kin : (9,) float64 ndarray or None
+        Kinetic form (:data:`KIN`): local Bertin-Droz-Gregoire coefficients.
+    extra : None or int
+        None for the minimal equations (:func:`._fd.extra_terms`).
+    p_lin, pressure : float, (K,) float64 ndarray
+        Linear pressure slope, and the pressure polynomial (see :func:`._fd.extra_terms`).
+    par : (4,) float64 ndarray
+        ``dx, dy, dt, noise_amp`` (:data:`PAR`).
+    noise : (nsteps, 2, ny, nx) float64 ndarray or None
+        Standard normal increments of each step.
+    ring : (nb, nsteps + 1, 3, 3, stride) float64 ndarray
+    hring : (nb, nsteps + 1, 1, 3, stride) float64 ndarray
+        Scratch of each band (:func:`._fd.row_stride`).
+    stats : (nb, 3) float64 ndarray
+        Written: per band ``(finite, min rho, max |w|^2)`` of the output state
+        (:mod:`._guard`; order-free reductions, so thread-count independent).
+    """
+    for b in prange(starts.shape[0] - 1):
+        _band(starts[b], starts[b + 1], u_in, h_in, u_out, h_out, fl, plain, channel,
+              nsteps, scheme, cs, kin, extra, p_lin, pressure, par, noise, ring[b],
+              hring[b], stats[b])
+
+
+def fd_advance_kernel_serial(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nsteps,
+                             scheme, cs, kin, extra, p_lin, pressure, par, noise, ring, hring,
+                             stats):
+    """:func:`fd_advance_kernel` on the calling thread (same arguments, same result).
+
+    Small grids use it: a parallel region per call costs more than it saves there, and
+    on shared cores a descheduled worker thread stalls every call (measured 13x slower
+    on a 64 x 64 grid with 2 threads on a loaded 2-core machine). It is a Python loop
+    over the compiled bands rather than one more compiled function because numba
+    re-optimizes everything a compiled function calls: a layer less saves seconds of
+    compilation per kernel variant on a fresh machine.
+    """
+    for b in range(starts.shape[0] - 1):
+        _band(int(starts[b]), int(starts[b + 1]), u_in, h_in, u_out, h_out, fl, plain,
+              bool(channel), int(nsteps), scheme, cs, kin, extra, p_lin, pressure, par, noise,
+              ring[b], hring[b], stats[b])

@@ -1,0 +1,221 @@
+"""Finite-difference engine: temporal blocking, bands, guard statistics, state layout.
+
+The blocked kernel must be an exact re-ordering of single steps: every check here is
+bit-for-bit (``assert_array_equal``) unless it compares two different formulas.
+"""
+
+import json
+
+import numpy as np
+import pytest
+
+import crossflock as cf
+from crossflock.continuum import FiniteDifferenceSolver, _fd, _fd_kernels
+from crossflock.continuum._guard import check_state, failure_cause, field_stats
+
+FULL = {"alpha": 1.0, "alpha_rho": 0.5, "beta": 1.0, "pressure": [0.5, 0.1, 0.02],
+        "D_T": 0.5, "D_B": 0.2, "D_2": 0.05, "lambda1": 0.4, "lambda2": 0.2,
+        "lambda3": -0.1, "D_rho": 0.1, "noise_strength": 0.01}
+MINIMAL = {"alpha": 1.0, "beta": 1.0, "pressure": [0.5], "D_T": 0.3}
+DISC = [{"center": [7.0, 9.0], "radius": 3.0}]
+
+
+def _cfg(domain=None, coefficients=None, **continuum):
+    return cf.load_config({
+        "domain": {"size": [16.0, 20.0], **(domain or {})},
+        "model": {"density": 2.0, "noise": 0.3},
+        "run": {"duration": 2.0, "sample_every": 1.0, "initial": "ordered", "seed": 11},
+        "continuum": {"grid": [16, 20], "dt": 0.01, "method": "finite_difference",
+                      "initial_noise": 0.2,
+                      "coefficients": FULL if coefficients is None else coefficients,
+                      **continuum},
+    })
+
+
+CASES = {
+    "periodic-full": _cfg(),
+    "periodic-minimal": _cfg(coefficients=MINIMAL),
+    "channel-full": _cfg({"boundary": "channel"}),
+    "disc-full": _cfg({"obstacles": DISC}),
+    "channel-disc-kinetic": _cfg({"boundary": "channel", "obstacles": DISC},
+                                 coefficients="kinetic", kinetic_noise="auto",
+                                 realizability=False),
+}
+
+
+@pytest.mark.parametrize("name", sorted(CASES))
+def test_blocked_advance_equals_single_steps(name):
+    cfg = CASES[name]
+    stepped = FiniteDifferenceSolver(cfg)
+    for _ in range(23):
+        stepped.step()
+    blocked = FiniteDifferenceSolver(cfg)
+    blocked.advance(5)   # includes the first (Euler) step
+    blocked.advance(18)  # several blocks, the last one partial
+    assert blocked.n_steps == stepped.n_steps == 23
+    np.testing.assert_array_equal(blocked._u, stepped._u)
+    np.testing.assert_array_equal(blocked._h, stepped._h)
+    assert blocked.rng.bit_generator.state == stepped.rng.bit_generator.state
+
+
+@pytest.mark.parametrize("channel", [False, True])
+def test_kernel_result_independent_of_bands_and_serial_or_parallel(channel):
+    # overlapped bands recompute their margins with the same arithmetic, so any band
+    # split (and the thread count that picks it) gives the same numbers
+    rng = np.random.default_rng(9)
+    ny, nx, k = 24, 20, 4
+    fluid = np.ones((ny, nx), np.uint8)
+    fluid[8:12, 5:9] = 0
+    fl = _fd.padded_fluid(fluid, channel)
+    u = (1.0 + 0.1 * rng.standard_normal((3, ny, nx))) * fluid
+    h = rng.standard_normal((3, ny, nx)) * fluid
+    noise = rng.standard_normal((k, 2, ny, nx))
+    cs = rng.uniform(0.1, 1.0, 12)
+    kin = rng.uniform(0.1, 1.0, 9)
+    outs = []
+    serial, parallel = _fd_kernels.fd_advance_kernel_serial, _fd_kernels.fd_advance_kernel
+    for kernel, nb in ((serial, 1), (parallel, 1), (parallel, 2), (parallel, 3), (serial, 7)):
+        u_out, h_out = np.zeros_like(u), np.zeros_like(h)
+        ring, hring, stats = _fd.scratch(nb, k, nx)
+        kernel(u, h, u_out, h_out, fl, _fd.plain_rows(fl), channel, _fd.band_starts(ny, nb),
+               k, _fd.scheme_table(k, False, 0.01), cs, kin, 1, 0.0,
+               np.array([0.5, 0.1, 0.02]), np.array([0.5, 0.5, 0.01, 0.1]), noise, ring,
+               hring, stats)
+        outs.append((u_out, h_out, (stats[:, 0].all(), stats[:, 1].min(),
+                                    stats[:, 2].max())))
+    for u_out, h_out, st in outs[1:]:
+        np.testing.assert_array_equal(u_out, outs[0][0])
+        np.testing.assert_array_equal(h_out, outs[0][1])
+        assert st == outs[0][2]
+    # the kernel's guard statistics are those of the state it wrote
+    assert outs[0][2] == field_stats(*outs[0][0])
+    assert not outs[0][0][:, fluid == 0].any()  # solids stay 0
+
+
+def test_plain_rows_and_padded_mask():
+    fluid = np.ones((6, 5), np.uint8)
+    fluid[3, 2] = 0
+    for channel, plain in ((False, [1, 1, 0, 0, 0, 1]), (True, [0, 1, 0, 0, 0, 0])):
+        fl = _fd.padded_fluid(fluid, channel)
+        assert fl.shape == (8, 7)
+        np.testing.assert_array_equal(_fd.plain_rows(fl), plain)
+    fl = _fd.padded_fluid(fluid, False)
+    np.testing.assert_array_equal(fl[0, 1:-1], fluid[-1])  # periodic rows wrap
+    np.testing.assert_array_equal(fl[4, 1:-1], fluid[3])
+    assert fl[4, 0] == fluid[3, -1] and fl[4, -1] == fluid[3, 0]
+
+
+def test_scheme_is_exactly_steady_and_conserves_mass_without_drift():
+    # a homogeneous state with alpha = beta |w|^2 is a fixed point of the equations;
+    # the increment form keeps it bit-for-bit (no drift from the rounded 4/3 and 1/3)
+    coeffs = {"alpha": 1.0, "beta": 0.25, "pressure": [0.5], "D_T": 0.3}
+    cfg = _cfg(coefficients=coeffs)
+    ny, nx = 20, 16
+    s = FiniteDifferenceSolver(cfg, initial=(np.full((ny, nx), 2.0), np.full((ny, nx), 2.0),
+                                             np.zeros((ny, nx))))
+    s.advance(300)
+    rho, wx, wy = s.fields()
+    assert (rho == 2.0).all() and (wx == 2.0).all() and (wy == 0.0).all()
+
+
+def test_resume_from_the_previous_state_layout():
+    # checkpoints written before the history form held (u, u_prev, n_prev); loading one
+    # converts h = -u_prev - 2 dt n_prev and continues the same SBDF2 steps
+    cfg = _cfg({"boundary": "channel"}, coefficients=dict(FULL, noise_strength=0.0))
+    ref = FiniteDifferenceSolver(cfg)
+    u0 = np.stack(ref.fields())
+    n0 = ref.rhs()
+    ref.advance(1)
+    u1 = np.stack(ref.fields())
+    ref.advance(10)
+    old = FiniteDifferenceSolver(cfg)
+    old.set_state({"u": u1, "u_prev": u0, "n_prev": n0, "first": np.array(0),
+                   "n_steps": 1, "rng": json.dumps(
+                       old.rng.bit_generator.state)})
+    old.advance(10)
+    np.testing.assert_allclose(np.stack(old.fields()), np.stack(ref.fields()),
+                               rtol=1e-13, atol=1e-13)
+
+
+def test_guard_statistics_from_the_kernel_match_the_fields():
+    cfg = _cfg({"obstacles": DISC})
+    s = FiniteDifferenceSolver(cfg)
+    s.advance(7)
+    assert s.health(2.0, 100.0) is None
+    rho, wx, wy = s.fields()
+    assert s._stats[1] == field_stats(rho, wx, wy)
+    assert failure_cause(*s._stats[1], 2.0, 0.1).startswith("|w| =")
+    assert check_state(rho, wx, wy, 2.0, 0.1) == failure_cause(*s._stats[1], 2.0, 0.1)
+
+
+def test_field_stats_against_numpy():
+    rng = np.random.default_rng(2)
+    rho, wx, wy = rng.normal(0.5, 1.0, (3, 9, 7))
+    finite, rmin, w2max = field_stats(rho, wx, wy)
+    assert finite and rmin == rho.min() and w2max == np.max(wx * wx + wy * wy)
+    wy[4, 3] = np.inf
+    assert field_stats(rho, wx, wy)[0] is False
+    rho[2, 2] = np.nan
+    assert check_state(rho, wx, wy, 1.0, 10.0) == "NaN or Inf in the fields"
+    rho[2, 2] = -0.5
+    wy[4, 3] = 0.0
+    assert check_state(rho, wx, wy, 1.0, 1e9).startswith("negative density")
+
+
+def test_last_good_state_survives_later_blocks_without_copies():
+    cfg = _cfg(coefficients=MINIMAL)
+    s = FiniteDifferenceSolver(cfg)
+    s.advance(3)
+    s.keep_good()
+    kept = np.stack(s.fields())
+    for _ in range(4):  # more blocks: they must not write into the kept buffers
+        s.advance(9)
+    t, fields = s.last_good()
+    assert t == pytest.approx(3 * s.dt)
+    np.testing.assert_array_equal(np.stack(fields), kept)
+
+
+def test_minimal_variant_only_for_the_minimal_equations():
+    cs = np.zeros(12)
+    assert _fd.extra_terms(cs, [0.5], False) == (None, 0.5, pytest.approx([0.5]))
+    assert _fd.extra_terms(cs, [], False)[:2] == (None, 0.0)
+    assert _fd.extra_terms(cs, [0.5, 0.1], False)[0] == 1  # non-linear pressure
+    assert _fd.extra_terms(cs, [0.5], True)[0] == 1  # kinetic: lambda terms
+    for i in (4, 5, 6, 7, 8, 9):  # lambda1-3, D_B, D_2, D_rho
+        one = cs.copy()
+        one[i] = 0.1
+        assert _fd.extra_terms(one, [0.5], False)[0] == 1
+
+
+def test_minimal_variant_computes_what_the_general_one_does():
+    # the minimal variant compiles the absent terms out; with those coefficients zero
+    # the general variant must give the same step
+    cfg = _cfg({"boundary": "channel", "obstacles": DISC}, coefficients=MINIMAL)
+    s = FiniteDifferenceSolver(cfg)
+    assert s._terms[0] is None
+    s.advance(2)
+    u, h = s._u.copy(), s._h.copy()
+    outs = []
+    for extra in (None, 1):
+        u_out, h_out = np.zeros_like(u), np.zeros_like(h)
+        ring, hring, stats = _fd.scratch(1, 3, s.nx)
+        _fd_kernels.fd_advance_kernel_serial(
+            u, h, u_out, h_out, s._fl, s._plain, True, _fd.band_starts(s.ny, 1), 3,
+            _fd.scheme_table(3, False, s.dt), s.coef.scalars, None, extra, s._terms[1],
+            s._terms[2], s._par, None, ring, hring, stats)
+        outs.append((u_out, h_out))
+    np.testing.assert_allclose(outs[0][0], outs[1][0], rtol=1e-15, atol=1e-15)
+    np.testing.assert_allclose(outs[0][1], outs[1][1], rtol=1e-15, atol=1e-15)
+
+
+def test_block_length_fits_the_cache_budget():
+    assert _fd.block_steps(16) == _fd.BLOCK_MAX
+    assert _fd.block_steps(100_000) == _fd.BLOCK_MIN
+    for nx in (256, 512, 1024, 2048):
+        k = _fd.block_steps(nx)
+        per_step = 4 * 3 * _fd.row_stride(nx) * 8
+        assert _fd.BLOCK_MIN <= k <= _fd.BLOCK_MAX
+        assert (k + 1) * per_step <= _fd.SCRATCH_BYTES or k == _fd.BLOCK_MIN
+    for nx in (510, 512, 1000):
+        stride = _fd.row_stride(nx)
+        assert stride >= nx + 2 and stride % 8 == 0 and (stride * 8) % 4096 != 0
