@@ -83,16 +83,16 @@ class CoefficientModel:
             np.multiply(q, f["per_q"][name], out=out[i])
         return out
 
-    def kinetic_vector(self) -> np.ndarray:
+    def kinetic_vector(self) -> np.ndarray | None:
         """The closed form of :meth:`local` as a ``(9,)`` vector for compiled kernels.
 
         Order ``q_a, q_b, alpha_slope, alpha_offset`` then ``per_q`` of beta, D_T,
         lambda1-3: with ``q = 1 / (q_a + q_b max(rho, 0))``, alpha is
-        ``max(rho, 0) alpha_slope + alpha_offset`` and the others ``q per_q``. Zeros in
+        ``max(rho, 0) alpha_slope + alpha_offset`` and the others ``q per_q``. None in
         table mode.
         """
         if not self.kinetic:
-            return np.zeros(4 + len(LOCALS) - 1)
+            return None
         f = self._form
         return np.array([f["q_a"], f["q_b"], f["alpha_slope"], f["alpha_offset"]]
                         + [f["per_q"][name] for name in LOCALS[1:]], dtype=np.float64)

@@ -27,6 +27,7 @@ SERIAL_BELOW = 128 * 256
 SCRATCH_BYTES = 768 * 1024
 BLOCK_MIN, BLOCK_MAX = 4, 16
 
+
 def extra_terms(cs, pressure, kinetic):
     """``(extra, p_lin, pressure)`` of the kernels.
 
@@ -139,12 +140,15 @@ class FiniteDifferenceSolver(ContinuumSolver):
         self._first = True
         self._fl = padded_fluid(self.mask, self.geometry.channel)
         self._plain = plain_rows(self._fl)
-        self._kin = self.coef.kinetic_vector() if self.coef.kinetic else None
+        self._kin = self.coef.kinetic_vector()
         self._terms = extra_terms(self.coef.scalars, self.coef.pressure, self.coef.kinetic)
         self._par = np.array([self.dx, self.dy, self.dt, self._noise_amp])
-        self._scratch = {}
-        self._schemes = {}
-        self._noise_buf = None
+        # sized for a whole block once: shorter blocks use the leading rows
+        self._scratch = {}  # per band count (the thread count may change between calls)
+        self._schemes = {first: scheme_table(self.block, first, self.dt)
+                         for first in (True, False)}
+        self._noise_buf = (np.empty((self.block, 2, self.ny, self.nx))
+                           if self._noise_amp != 0.0 else None)
         self._stats = None  # (n_steps, (finite, min rho, max |w|^2)) from the kernel
 
     @property
@@ -193,32 +197,29 @@ class FiniteDifferenceSolver(ContinuumSolver):
         return self._good_time, (u[0].copy(), u[1].copy(), u[2].copy())
 
     # ------------------------------------------------------------------ stepping
-    def _bands(self, nsteps):
+    def _bands(self):
         parallel = self.nx * self.ny >= SERIAL_BELOW
         nb = numba.get_num_threads() if parallel else 1
-        key = (nb, nsteps)
-        if key not in self._scratch:
-            self._scratch[key] = (band_starts(self.ny, nb),) + scratch(nb, nsteps, self.nx)
+        if nb not in self._scratch:
+            self._scratch[nb] = (band_starts(self.ny, nb),) + scratch(nb, self.block, self.nx)
         kernel = fd_advance_kernel if parallel else fd_advance_kernel_serial
-        return (kernel,) + self._scratch[key]
+        return (kernel,) + self._scratch[nb]
 
     def _draw_noise(self, nsteps):
-        """Standard normal increments ``(nsteps, 2, ny, nx)`` (None without noise).
+        """Standard normal increments in the first ``nsteps`` rows of the ``(block, 2,
+        ny, nx)`` buffer (None without noise).
 
         Drawn step by step from the solver's stream, so a block of K steps uses the
         numbers of K single steps.
         """
-        if self._noise_amp == 0.0:
-            return None
         buf = self._noise_buf
-        if buf is None or buf.shape[0] != nsteps:
-            buf = self._noise_buf = np.empty((nsteps, 2, self.ny, self.nx))
-        for s in range(nsteps):
-            self.rng.standard_normal(out=buf[s])
+        if buf is not None:
+            for s in range(nsteps):
+                self.rng.standard_normal(out=buf[s])
         return buf
 
     def _run(self, u_in, h_in, u_out, h_out, nsteps, scheme, noise=None):
-        kernel, starts, ring, hring, stats = self._bands(nsteps)
+        kernel, starts, ring, hring, stats = self._bands()
         kernel(u_in, h_in, u_out, h_out, self._fl, self._plain, self.geometry.channel,
                starts, nsteps, scheme, self.coef.scalars,
                self._kin, *self._terms, self._par, noise, ring, hring,
@@ -229,10 +230,8 @@ class FiniteDifferenceSolver(ContinuumSolver):
         free = next(i for i in range(3) if i != self._cur and i != self._good_set)
         noise = self._draw_noise(nsteps)
         u_out, h_out = self._sets[free]
-        key = (nsteps, self._first)
-        if key not in self._schemes:
-            self._schemes[key] = scheme_table(nsteps, self._first, self.dt)
-        stats = self._run(self._u, self._h, u_out, h_out, nsteps, self._schemes[key], noise)
+        stats = self._run(self._u, self._h, u_out, h_out, nsteps, self._schemes[self._first],
+                          noise)
         self._cur = free
         self._first = False
         return stats

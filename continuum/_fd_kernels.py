@@ -96,7 +96,7 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
 
     Parameters
     ----------
-    ring : (nsteps + 1, 3, 3, stride) float64 ndarray
+    ring : (>= nsteps + 1, 3, 3, stride) float64 ndarray
         Ring rows of every step of the band. Step ``lv`` slots ``sa``, ``sb``, ``sc``
         hold rows j-1, j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and
         nx + 1 the periodic copies of columns nx and 1. Written: step ``lv + 1``, slot
@@ -106,9 +106,9 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         stencil of row j is all fluid.
     j : int
         The row (for ``fl`` and ``noise``).
-    hring : (nsteps + 1, 1, 3, stride) float64 ndarray
+    hring : (>= nsteps + 1, 1, 3, stride) float64 ndarray
         History rows; row ``hs`` is updated in place.
-    noise : (nsteps, 2, ny, nx) float64 ndarray or None
+    noise : (>= nsteps, 2, ny, nx) float64 ndarray or None
         Standard normal noise; ``noise[lv, :, j]`` is used.
     nx : int
     cs : (12,) float64 ndarray
@@ -124,7 +124,7 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         Pressure polynomial (used otherwise).
     par : (4,) float64 ndarray
         :data:`PAR`.
-    g : (nsteps, 6) float64 ndarray
+    g : (>= nsteps, 6) float64 ndarray
         Row ``lv``: ``(c_1, c_u, c_h, c_n, c_s, c_xi)`` of the update
         ``u' = c_1 u + (c_u u + c_h h + c_n N) c_s + c_xi amp xi`` and
         ``h' = -u - 2 dt N`` (:func:`._fd.scheme_table`).
@@ -240,16 +240,11 @@ def _load_row(src, j, dst, a, b):
 
 @numba.njit(cache=True)
 def _store_row(src, a, b, dst, j):
-    """Copy ``src[a, b, :, 1:nx+1]`` into ``dst[:, j, :]``.
-
-    Returns ``(finite, min of field 0, max of field 1^2 + field 2^2)`` of the row: the
-    guard statistics (:mod:`._guard`) when the row is a state ``(rho, w_x, w_y)``.
-    """
+    """Copy ``src[a, b, :, 1:nx+1]`` into ``dst[:, j, :]``."""
     nx = dst.shape[2]
     for c in range(dst.shape[0]):
         for i in range(nx):
             dst[c, j, i] = src[a, b, c, i + 1]
-    return field_stats(dst[0, j:j + 1], dst[1, j:j + 1], dst[2, j:j + 1])
 
 
 @numba.njit(cache=True)
@@ -257,8 +252,8 @@ def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, 
           extra, p_lin, pressure, par, noise, ring, hring, stats):
     """Advance rows ``[lo, hi)`` by ``nsteps`` steps (wavefront over the widened band).
 
-    ``ring`` : (nsteps + 1, 3, 3, stride) rows of each step (3 ring slots per step);
-    ``hring`` : (nsteps + 1, 1, 3, stride) history rows in flight. ``stats`` (3,):
+    ``ring`` : (>= nsteps + 1, 3, 3, stride) rows of each step (3 ring slots per step);
+    ``hring`` : (>= nsteps + 1, 1, 3, stride) history rows in flight. ``stats`` (3,):
     written with the guard statistics ``(finite, min rho, max |w|^2)`` of the band's
     output rows.
     """
@@ -297,7 +292,9 @@ def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, 
                 _row(ring, s - 1, (r - 1) % 3, r % 3, (r + 1) % 3, fl, j, hring, hs, noise, nx,
                      cs, kin, extra, p_lin, pressure, par, scheme)
             if s == k and lo <= r < hi:
-                ok, row_min, row_max = _store_row(ring, s, r % 3, u_out, j)
+                _store_row(ring, s, r % 3, u_out, j)
+                ok, row_min, row_max = field_stats(u_out[0, j:j + 1], u_out[1, j:j + 1],
+                                                   u_out[2, j:j + 1])
                 finite = finite and ok
                 rmin = min(rmin, row_min)
                 w2max = max(w2max, row_max)
@@ -329,7 +326,7 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
     starts : (nb + 1,) int64 ndarray
         Band boundaries (:func:`._fd.band_starts`); the result does not depend on them.
     nsteps : int
-    scheme : (nsteps, 5) float64 ndarray
+    scheme : (>= nsteps, 6) float64 ndarray
         Per step ``(c_1, c_u, c_h, c_n, c_s, c_xi)`` (:func:`._fd.scheme_table`); the
         row of :func:`._fd.rhs_scheme` writes the right-hand side of ``u_in`` instead.
     cs : (12,) float64 ndarray
@@ -342,11 +339,12 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
         Linear pressure slope, and the pressure polynomial (see :func:`._fd.extra_terms`).
     par : (4,) float64 ndarray
         ``dx, dy, dt, noise_amp`` (:data:`PAR`).
-    noise : (nsteps, 2, ny, nx) float64 ndarray or None
+    noise : (>= nsteps, 2, ny, nx) float64 ndarray or None
         Standard normal increments of each step.
-    ring : (nb, nsteps + 1, 3, 3, stride) float64 ndarray
-    hring : (nb, nsteps + 1, 1, 3, stride) float64 ndarray
-        Scratch of each band (:func:`._fd.row_stride`).
+    ring : (nb, >= nsteps + 1, 3, 3, stride) float64 ndarray
+    hring : (nb, >= nsteps + 1, 1, 3, stride) float64 ndarray
+        Scratch of each band (:func:`._fd.scratch`); larger scratch serves shorter
+        blocks.
     stats : (nb, 3) float64 ndarray
         Written: per band ``(finite, min rho, max |w|^2)`` of the output state
         (:mod:`._guard`; order-free reductions, so thread-count independent).

@@ -40,7 +40,7 @@ from ._coefficients import CoefficientModel
 from ._guard import check_state
 from ._limiter import apply_realizability
 
-# grids smaller than this step on one numba thread (see ContinuumSolver.step)
+# grids smaller than this step on one numba thread (see ContinuumSolver.advance)
 SMALL_GRID = 128 * 256
 
 __all__ = ["ContinuumSolver", "initial_fields"]

@@ -105,9 +105,10 @@ def test_plain_rows_and_padded_mask():
     assert fl[4, 0] == fluid[3, -1] and fl[4, -1] == fluid[3, 0]
 
 
-def test_scheme_is_exactly_steady_and_conserves_mass_without_drift():
-    # a homogeneous state with alpha = beta |w|^2 is a fixed point of the equations;
-    # the increment form keeps it bit-for-bit (no drift from the rounded 4/3 and 1/3)
+def test_homogeneous_fixed_point_stays_exactly_steady():
+    # the homogeneous ordered state |w|^2 = alpha / beta (GUIDE section 3: the
+    # alignment term vanishes, every gradient is 0) is a fixed point of the equations;
+    # the increment form keeps it bit for bit, so the rounded 4/3 and 1/3 cause no drift
     coeffs = {"alpha": 1.0, "beta": 0.25, "pressure": [0.5], "D_T": 0.3}
     cfg = _cfg(coefficients=coeffs)
     ny, nx = 20, 16
