@@ -27,16 +27,17 @@ checked by :func:`crossflock._stability.check_continuum_dt`.
 
 Temporal blocking
 -----------------
-One explicit step couples a row only to the rows next to it, so K steps of a band of rows
-depend only on that band widened by K rows. :func:`fd_advance_kernel` advances K steps
-in one pass over memory: each band streams its widened rows through a wavefront of ring
-buffers (level s holds the last three rows of step s, small enough for the core's cache)
-and writes the band's rows after step K. The state is read and written once per K steps
-instead of once per step; one step per pass is limited by memory bandwidth on grids
-larger than the cache (measured in ``benchmarks/bench_continuum.py``). Rows of the
-widened margins are computed by both bands that need them, with the same arithmetic, so
-the result does not depend on the number of bands (threads) nor on K: ``advance(K)``
-equals K calls of ``step()`` bit for bit.
+One explicit step couples a row only to the rows next to it, so K steps of a band of
+rows depend only on that band widened by K rows. :func:`fd_advance_kernel` advances K
+steps in one pass over memory: each band streams its widened rows through a wavefront of
+ring buffers (level s holds the last rows of step s; all levels together fit the caches,
+see ``_fd.block_steps``) and writes the band's rows after step K. The state is read and
+written once per K steps instead of once per step; one step per pass is limited by
+memory bandwidth on grids larger than the cache (measured in
+``benchmarks/bench_continuum.py``). Rows of the widened margins are computed by both
+bands that need them, with the same arithmetic, so the result does not depend on the
+number of bands (threads) nor on K: ``advance(K)`` equals K calls of ``step()`` bit for
+bit.
 
 References
 ----------
@@ -96,7 +97,7 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
 
     Parameters
     ----------
-    ring : (>= nsteps + 1, 3, 3, stride) float64 ndarray
+    ring : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
         Ring rows of every step of the band. Step ``lv`` slots ``sa``, ``sb``, ``sc``
         hold rows j-1, j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and
         nx + 1 the periodic copies of columns nx and 1. Written: step ``lv + 1``, slot
@@ -106,7 +107,7 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         stencil of row j is all fluid.
     j : int
         The row (for ``fl`` and ``noise``).
-    hring : (>= nsteps + 1, 1, 3, stride) float64 ndarray
+    hring : (>= nsteps + m, 1, 3, stride) float64 ndarray
         History rows; row ``hs`` is updated in place.
     noise : (>= nsteps, 2, ny, nx) float64 ndarray or None
         Standard normal noise; ``noise[lv, :, j]`` is used.
@@ -124,9 +125,9 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         Pressure polynomial (used otherwise).
     par : (4,) float64 ndarray
         :data:`PAR`.
-    g : (>= nsteps, 6) float64 ndarray
-        Row ``lv``: ``(c_1, c_u, c_h, c_n, c_s, c_xi)`` of the update
-        ``u' = c_1 u + (c_u u + c_h h + c_n N) c_s + c_xi amp xi`` and
+    g : (>= nsteps, 4) float64 ndarray
+        Row ``lv``: ``(c_1, c_s, c_n, c_xi)`` of the update
+        ``u' = c_1 u + c_s (u + h) + c_n N + c_xi amp xi`` and
         ``h' = -u - 2 dt N`` (:func:`._fd.scheme_table`).
     """
     dx, dy, dt, amp = par[0], par[1], par[2], par[3]
@@ -136,12 +137,20 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
     i2dy = 0.5 / dy
     i4dxdy = 0.25 / (dx * dy)
     dt2 = 2.0 * dt
-    c_1, c_u, c_h, c_n, c_s = g[lv, 0], g[lv, 1], g[lv, 2], g[lv, 3], g[lv, 4]
-    c_xi = g[lv, 5] * amp
+    c_1, c_s, c_n = g[lv, 0], g[lv, 1], g[lv, 2]
+    c_xi = g[lv, 3] * amp
     out = lv + 1
     alpha0, alpha_rho, beta_t, d_t_t = cs[0], cs[1], cs[2], cs[3]
     lam1_t, lam2_t, lam3_t, d_b, d_2, d_rho, v0, rho0 = (cs[4], cs[5], cs[6], cs[7], cs[8],
                                                           cs[9], cs[10], cs[11])
+    # Constant coefficients are folded into the stencil weights (D_T into the Laplacian;
+    # for the minimal equations also P' into grad rho and v0 into div w), and the term
+    # functions get a unit coefficient, which the compiler removes: fewer multiplications
+    # per point. The differences stay exact zeros on a uniform field.
+    alpha_c = alpha0 - alpha_rho * rho0
+    lap_x, lap_y = d_t_t * idx2, d_t_t * idy2
+    grad_x, grad_y = p_lin * i2dx, p_lin * i2dy
+    div_x, div_y = v0 * i2dx, v0 * i2dy
     q_a = q_b = a_slope = a_off = k_beta = k_dt = k_l1 = k_l2 = k_l3 = 0.0
     if kin is not None:
         q_a, q_b, a_slope, a_off = kin[0], kin[1], kin[2], kin[3]
@@ -161,31 +170,37 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
             rE, rW, rN, rS = _ghost4(rE, rW, rN, rS, fE, fW, fN, fS, r)
             xE, xW, xN, xS = _ghost4(xE, xW, xN, xS, fE, fW, fN, fS, -ux)
             yE, yW, yN, yS = _ghost4(yE, yW, yN, yS, fE, fW, fN, fS, -uy)
+        # second differences (unscaled): exact zeros on a uniform field
+        ux2, uy2 = ux + ux, uy + uy
+        sxx_x, syy_x = xE + xW - ux2, xN + xS - ux2
+        sxx_y, syy_y = yE + yW - uy2, yN + yS - uy2
         if kin is None:
-            alpha = alpha0 + alpha_rho * (r - rho0)
-            beta, d_t, lam1, lam2, lam3 = beta_t, d_t_t, lam1_t, lam2_t, lam3_t
+            alpha = alpha_c + alpha_rho * r
+            beta, lam1, lam2, lam3 = beta_t, lam1_t, lam2_t, lam3_t
+            d_t = 1.0  # folded into the Laplacian
+            lapx = sxx_x * lap_x + syy_x * lap_y
+            lapy = sxx_y * lap_x + syy_y * lap_y
         else:  # Bertin-Droz-Gregoire coefficients at the local density
             rp = max(r, 0.0)
             q = 1.0 / (q_a + q_b * rp)
             alpha = rp * a_slope + a_off
             beta, d_t, lam1, lam2, lam3 = q * k_beta, q * k_dt, q * k_l1, q * k_l2, q * k_l3
-        if extra is None:
-            slope = p_lin
-        else:
-            slope = _terms.pressure_slope(r - rho0, pressure)
-        gxx = (xE - xW) * i2dx
-        gyy = (yN - yS) * i2dy
-        gyx = (xN - xS) * i2dy
-        gxy = (yE - yW) * i2dx
-        hxx_x = (xE + xW - 2.0 * ux) * idx2
-        hyy_x = (xN + xS - 2.0 * ux) * idy2
-        hxx_y = (yE + yW - 2.0 * uy) * idx2
-        hyy_y = (yN + yS - 2.0 * uy) * idy2
-        hxy_x = hxy_y = lap_r = 0.0
-        if extra is None:  # constants: the terms fold away at compile time
+            lapx = sxx_x * idx2 + syy_x * idy2
+            lapy = sxx_y * idx2 + syy_y * idy2
+        hxx_x = hyy_x = hxx_y = hyy_y = hxy_x = hxy_y = lap_r = 0.0
+        gxy = gyx = 0.0
+        if extra is None:  # constants: the other terms fold away at compile time
             lam1 = lam2 = lam3 = c_db = c_d2 = c_drho = 0.0
+            slope = vc = 1.0  # folded into grad rho and div w
+            dxr, dyr = (rE - rW) * grad_x, (rN - rS) * grad_y
+            gxx, gyy = (xE - xW) * div_x, (yN - yS) * div_y
         else:
-            c_db, c_d2, c_drho = d_b, d_2, d_rho
+            c_db, c_d2, c_drho, vc = d_b, d_2, d_rho, v0
+            slope = _terms.pressure_slope(r - rho0, pressure)
+            dxr, dyr = (rE - rW) * i2dx, (rN - rS) * i2dy
+            gxx, gyy = (xE - xW) * i2dx, (yN - yS) * i2dy
+            gyx, gxy = (xN - xS) * i2dy, (yE - yW) * i2dx
+            hxx_x, hyy_x, hxx_y, hyy_y = sxx_x * idx2, syy_x * idy2, sxx_y * idx2, syy_y * idy2
             lap_r = (rE + rW - 2.0 * r) * idx2 + (rN + rS - 2.0 * r) * idy2
             xNE, xNW = ring[lv, sc, 1, i + 1], ring[lv, sc, 1, i - 1]
             xSE, xSW = ring[lv, sa, 1, i + 1], ring[lv, sa, 1, i - 1]
@@ -198,13 +213,13 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
             hxy_x = (xNE - xNW - xSE + xSW) * i4dxdy
             hxy_y = (yNE - yNW - ySE + ySW) * i4dxdy
         fx, fy = _terms.momentum(
-            ux, uy, (rE - rW) * i2dx, (rN - rS) * i2dy, gxx, gxy, gyx, gyy,
-            hxx_x + hyy_x, hxx_y + hyy_y, hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
+            ux, uy, dxr, dyr, gxx, gxy, gyx, gyy, lapx, lapy,
+            hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
             alpha, beta, lam1, lam2, lam3, d_t, c_db, c_d2, slope)
-        n0 = _terms.continuity(gxx + gyy, lap_r, v0, c_drho)
-        a0 = c_1 * r + (c_u * r + c_h * hring[hs, 0, 0, i] + c_n * n0) * c_s
-        a1 = c_1 * ux + (c_u * ux + c_h * hring[hs, 0, 1, i] + c_n * fx) * c_s
-        a2 = c_1 * uy + (c_u * uy + c_h * hring[hs, 0, 2, i] + c_n * fy) * c_s
+        n0 = _terms.continuity(gxx + gyy, lap_r, vc, c_drho)
+        a0 = c_1 * r + c_s * (r + hring[hs, 0, 0, i]) + c_n * n0
+        a1 = c_1 * ux + c_s * (ux + hring[hs, 0, 1, i]) + c_n * fx
+        a2 = c_1 * uy + c_s * (uy + hring[hs, 0, 2, i]) + c_n * fy
         if noise is not None:
             a1 += c_xi * noise[lv, 0, j, i - 1]
             a2 += c_xi * noise[lv, 1, j, i - 1]
@@ -252,16 +267,21 @@ def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, 
           extra, p_lin, pressure, par, noise, ring, hring, stats):
     """Advance rows ``[lo, hi)`` by ``nsteps`` steps (wavefront over the widened band).
 
-    ``ring`` : (>= nsteps + 1, 3, 3, stride) rows of each step (3 ring slots per step);
-    ``hring`` : (>= nsteps + 1, 1, 3, stride) history rows in flight. ``stats`` (3,):
-    written with the guard statistics ``(finite, min rho, max |w|^2)`` of the band's
-    output rows.
+    ``ring`` : (>= nsteps + 1, m + 2, 3, stride) rows of each step; ``hring`` :
+    (>= nsteps + m, 1, 3, stride) history rows in flight. Each sweep of the wavefront
+    takes ``m`` rows per step (step s: rows ``T - s .. T - s + m - 1``), so a step's
+    input rows are read while still in the cache for the next ``m`` rows instead of one.
+    ``stats`` (3,): written with the guard statistics ``(finite, min rho, max |w|^2)``
+    of the band's output rows.
     """
     finite = True
     rmin = np.inf
     w2max = 0.0
     ny, nx = u_in.shape[1], u_in.shape[2]
     k = nsteps
+    m = ring.shape[1] - 2  # rows per step and sweep
+    ns = m + 2  # ring slots per step: the m new rows and the two before them
+    nh = k + m  # history rows in flight
     if channel:
         r_lo = max(lo - k, 0)
         r_hi = min(hi + k, ny)
@@ -270,35 +290,34 @@ def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, 
         r_hi = hi + k
     wall_lo = channel and r_lo == 0
     wall_hi = channel and r_hi == ny
-    nh = k + 1
-    for t in range(r_lo, r_hi + k):
+    for t in range(r_lo, r_hi + k, m):
         for s in range(k + 1):
-            r = t - s  # row r of step s: needs rows r-1, r, r+1 of step s-1, all done
             lo_s = r_lo if wall_lo else r_lo + s
             hi_s = r_hi if wall_hi else r_hi - s
-            if r < lo_s or r >= hi_s:
-                continue
-            j = r % ny
-            hs = r % nh
-            if s == 0:
-                _load_row(u_in, j, ring, 0, r % 3)
-                _load_row(h_in, j, hring, hs, 0)
-                continue
-            # rows j-1, j, j+1 of step s-1 sit in ring slots (r-1) % 3, r % 3, (r+1) % 3
-            if plain[j]:
-                _row(ring, s - 1, (r - 1) % 3, r % 3, (r + 1) % 3, None, j, hring, hs, noise, nx,
-                     cs, kin, extra, p_lin, pressure, par, scheme)
-            else:
-                _row(ring, s - 1, (r - 1) % 3, r % 3, (r + 1) % 3, fl, j, hring, hs, noise, nx,
-                     cs, kin, extra, p_lin, pressure, par, scheme)
-            if s == k and lo <= r < hi:
-                _store_row(ring, s, r % 3, u_out, j)
-                ok, row_min, row_max = field_stats(u_out[0, j:j + 1], u_out[1, j:j + 1],
-                                                   u_out[2, j:j + 1])
-                finite = finite and ok
-                rmin = min(rmin, row_min)
-                w2max = max(w2max, row_max)
-                _store_row(hring, hs, 0, h_out, j)
+            for r in range(max(t - s, lo_s), min(t - s + m, hi_s)):
+                j = r % ny
+                hs = r % nh
+                if s == 0:
+                    _load_row(u_in, j, ring, 0, r % ns)
+                    _load_row(h_in, j, hring, hs, 0)
+                    continue
+                # rows j-1, j, j+1 of step s-1 (all done: rows up to t - s + m of step
+                # s-1 were taken earlier in this sweep) sit in slots (r-1..r+1) % ns
+                sa, sb, sc = (r - 1) % ns, r % ns, (r + 1) % ns
+                if plain[j]:
+                    _row(ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
+                         extra, p_lin, pressure, par, scheme)
+                else:
+                    _row(ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
+                         extra, p_lin, pressure, par, scheme)
+                if s == k and lo <= r < hi:
+                    _store_row(ring, s, sb, u_out, j)
+                    ok, row_min, row_max = field_stats(u_out[0, j:j + 1], u_out[1, j:j + 1],
+                                                       u_out[2, j:j + 1])
+                    finite = finite and ok
+                    rmin = min(rmin, row_min)
+                    w2max = max(w2max, row_max)
+                    _store_row(hring, hs, 0, h_out, j)
     stats[0] = 1.0 if finite else 0.0
     stats[1] = rmin
     stats[2] = w2max
@@ -326,8 +345,8 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
     starts : (nb + 1,) int64 ndarray
         Band boundaries (:func:`._fd.band_starts`); the result does not depend on them.
     nsteps : int
-    scheme : (>= nsteps, 6) float64 ndarray
-        Per step ``(c_1, c_u, c_h, c_n, c_s, c_xi)`` (:func:`._fd.scheme_table`); the
+    scheme : (>= nsteps, 4) float64 ndarray
+        Per step ``(c_1, c_s, c_n, c_xi)`` (:func:`._fd.scheme_table`); the
         row of :func:`._fd.rhs_scheme` writes the right-hand side of ``u_in`` instead.
     cs : (12,) float64 ndarray
         Scalars in the order of ``_coefficients.SCALARS``.
@@ -341,8 +360,8 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
         ``dx, dy, dt, noise_amp`` (:data:`PAR`).
     noise : (>= nsteps, 2, ny, nx) float64 ndarray or None
         Standard normal increments of each step.
-    ring : (nb, >= nsteps + 1, 3, 3, stride) float64 ndarray
-    hring : (nb, >= nsteps + 1, 1, 3, stride) float64 ndarray
+    ring : (nb, >= nsteps + 1, m + 2, 3, stride) float64 ndarray
+    hring : (nb, >= nsteps + m, 1, 3, stride) float64 ndarray
         Scratch of each band (:func:`._fd.scratch`); larger scratch serves shorter
         blocks.
     stats : (nb, 3) float64 ndarray

@@ -210,13 +210,20 @@ def test_minimal_variant_computes_what_the_general_one_does():
 
 
 def test_block_length_fits_the_cache_budget():
-    assert _fd.block_steps(16) == _fd.BLOCK_MAX
-    assert _fd.block_steps(100_000) == _fd.BLOCK_MIN
-    for nx in (256, 512, 1024, 2048):
-        k = _fd.block_steps(nx)
-        per_step = 4 * 3 * _fd.row_stride(nx) * 8
-        assert _fd.BLOCK_MIN <= k <= _fd.BLOCK_MAX
-        assert (k + 1) * per_step <= _fd.SCRATCH_BYTES or k == _fd.BLOCK_MIN
+    assert _fd.block_steps(16, 4096) == _fd.BLOCK_MAX
+    assert _fd.block_steps(100_000, 4096) == _fd.BLOCK_MIN
+    assert _fd.block_steps(512, 16) == _fd.BLOCK_MIN  # margins bounded by the rows
+    for nx in (256, 512, 1024, 2048, 4096):
+        for ny in (16, 64, 128, 512, 4096):
+            k = _fd.block_steps(nx, ny)
+            assert _fd.BLOCK_MIN <= k <= _fd.BLOCK_MAX
+            ring, hring, _ = _fd.scratch(1, k, nx)
+            assert _fd.scratch_bytes(k, nx) == ring.nbytes + hring.nbytes
+            assert k == _fd.BLOCK_MIN or (ring.nbytes + hring.nbytes <= _fd.SCRATCH_BYTES
+                                          and k * _fd.MARGIN_SHARE <= ny)
+            # the largest block within both limits
+            assert k == _fd.BLOCK_MAX or k * _fd.MARGIN_SHARE + _fd.MARGIN_SHARE > ny or (
+                _fd.scratch_bytes(k + 1, nx) > _fd.SCRATCH_BYTES)
     for nx in (510, 512, 1000):
         stride = _fd.row_stride(nx)
         assert stride >= nx + 2 and stride % 8 == 0 and (stride * 8) % 4096 != 0
