@@ -6,8 +6,8 @@ d_t w = (alpha - beta |w|^2) w - P1 grad rho + D_T lap w, run in the same proces
 same grid and dt. The finite-difference solver's first step is forward Euler of the same
 discretisation, so the two are checked to agree to round-off before timing.
 
-Figures (medians of repeats): grid-point-updates per second and the ratio to the
-reference for
+Figures (medians over rounds; each round times every path once, so a round's ratios see
+one machine state): grid-point-updates per second and the ratio to the reference for
 
 * finite_difference ``step()``: one SBDF2 step per pass over memory;
 * finite_difference ``advance(K)``: K steps per pass (temporal blocking, K from
@@ -78,16 +78,29 @@ class NumpyReference:
         self.wy = wy + DT * dwy
 
 
-def timed(step, steps, repeats, per_call=1):
-    """Median seconds per step of ``step`` (each call advancing ``per_call`` steps)."""
-    step()  # warm-up (compilation, caches)
-    times = []
+def timed(step, steps, per_call=1):
+    """Seconds per step of ``steps`` calls of ``step`` (each advancing ``per_call``)."""
+    t0 = time.perf_counter()
+    for _ in range(steps):
+        step()
+    return (time.perf_counter() - t0) / (steps * per_call)
+
+
+def interleaved(paths, repeats):
+    """Per path, the list of seconds per step over ``repeats`` rounds.
+
+    ``paths``: name -> (callable, calls per timing, steps per call). Each round times every
+    path once, one after the other, so that the ratios of a round see the same machine
+    state: on a shared machine the memory-bound reference alone drifts by a factor 1.5
+    within minutes.
+    """
+    for path in paths.values():
+        path[0]()  # warm-up (compilation, caches)
+    out = {name: [] for name in paths}
     for _ in range(repeats):
-        t0 = time.perf_counter()
-        for _ in range(steps):
-            step()
-        times.append((time.perf_counter() - t0) / (steps * per_call))
-    return statistics.median(times)
+        for name, (step, calls, per_call) in paths.items():
+            out[name].append(timed(step, calls, per_call))
+    return out
 
 
 def fft_share(solver, steps, repeats):
@@ -153,23 +166,29 @@ def main(argv=None):
         sp = SpectralSolver(config(n, "spectral"), workers=nthreads)
         ref = NumpyReference(*fd.fields(), fd.dx, V0)
         k = fd.block
-        t_ref = timed(ref.step, args.steps, args.repeats)
-        t_fd = timed(fd.step, args.steps, args.repeats)
-        t_blk = timed(lambda fd=fd, k=k: fd.advance(k), max(1, args.steps // 2),
-                      args.repeats, per_call=k)
-        t_sp = timed(sp.step, args.steps, args.repeats)
+        times = interleaved({
+            "ref": (ref.step, args.steps, 1),
+            "step": (fd.step, args.steps, 1),
+            "advance": (lambda fd=fd, k=k: fd.advance(k), max(1, 4 * args.steps // k), k),
+            "spectral": (sp.step, args.steps, 1),
+        }, args.repeats)
         share = fft_share(sp, args.steps, args.repeats)
         print(f"grid {n}x{n}, dt {DT}, numba threads {nthreads}, FFT workers "
-              f"{sp.workers}, medians of {args.repeats} repeats, load average "
+              f"{sp.workers}, {args.repeats} interleaved rounds (medians), load average "
               f"{os.getloadavg()[0]:.2f}")
-        rows = (("numpy np.roll reference (Euler)", t_ref),
-                ("finite_difference step()", t_fd),
-                (f"finite_difference advance({k})", t_blk),
-                ("spectral step()", t_sp))
-        for name, t in rows:
-            print(f"  {name:34s} {t * 1e3:9.3f} ms/step  {points / t:12.4g} point-updates/s"
-                  f"  {t_ref / t:6.2f}x")
-        print(f"  finite_difference (blocked) / numpy: {t_ref / t_blk:.2f}x (target >= 20x)")
+        rows = (("numpy np.roll reference (Euler)", "ref"),
+                ("finite_difference step()", "step"),
+                (f"finite_difference advance({k})", "advance"),
+                ("spectral step()", "spectral"))
+        for label, name in rows:
+            t = statistics.median(times[name])
+            ratio = statistics.median(r / x for r, x in zip(times["ref"], times[name], strict=True))
+            print(f"  {label:34s} {t * 1e3:9.3f} ms/step  {points / t:12.4g} point-updates/s"
+                  f"  {ratio:6.2f}x")
+        ratios = sorted(r / x for r, x in zip(times["ref"], times["advance"], strict=True))
+        print(f"  finite_difference (blocked) / numpy: {statistics.median(ratios):.2f}x, "
+              f"rounds {ratios[0]:.2f}-{ratios[-1]:.2f}x (target >= 20x); reference "
+              f"{min(times['ref']) * 1e3:.2f}-{max(times['ref']) * 1e3:.2f} ms/step")
         print(f"  spectral step time in FFTs:          {100 * share:.1f}% (target >= 60%)")
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     print(f"peak RSS: {rss:.1f} MiB")

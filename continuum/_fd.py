@@ -101,28 +101,28 @@ def band_starts(ny, nbands):
 
 
 def scheme_table(nsteps, first, dt):
-    """``(nsteps, 4)`` rows ``(c_1, c_s, c_n, c_xi)`` of the SBDF2 steps.
+    """``(nsteps, 3)`` rows ``(c_s, c_n, c_xi)`` of the SBDF2 steps.
 
-    The update is ``u' = c_1 u + c_s (u + h) + c_n N + c_xi dW``, written as an
-    increment: ``(1, 1/3, 4 dt / 3, 2/3)``, which is the module docstring's form, and
-    forward Euler ``(1, 0, dt, 1)`` for the first step of a run (``0 (u + h)`` is 0 for
-    finite fields). As an increment, a steady state (``u + h = 0``, N = 0) stays exactly
-    steady and the total mass changes by round-off only, with no drift from the rounded
-    constants 4/3 and 1/3.
+    The update is ``u' = u + c_s (u + h) + c_n N + c_xi dW``, written as an increment:
+    ``(1/3, 4 dt / 3, 2/3)``, which is the module docstring's form, and forward Euler
+    ``(0, dt, 1)`` for the first step of a run (``0 (u + h)`` is 0 for finite fields). As
+    an increment, a steady state (``u + h = 0``, N = 0) stays exactly steady and the total
+    mass changes by round-off only, with no drift from the rounded constants 4/3 and 1/3.
     """
-    table = np.tile([1.0, 1.0 / 3.0, 4.0 * dt / 3.0, 2.0 / 3.0], (nsteps, 1))
+    table = np.tile([1.0 / 3.0, 4.0 * dt / 3.0, 2.0 / 3.0], (nsteps, 1))
     if first:
-        table[0] = (1.0, 0.0, dt, 1.0)
+        table[0] = (0.0, dt, 1.0)
     return table
 
 
 def rhs_scheme():
-    """The one-row table that makes the kernel write N itself: ``u' = 0 u + 0 (u + h) + N``.
+    """The one-row table that makes the kernel write N itself, given ``h = 0``:
+    ``u' = u - (u + 0) + N``.
 
-    The right-hand side comes out exactly (the zero terms are 0 for finite fields), from
-    the same compiled kernel as the steps.
+    The right-hand side comes out exactly: ``u - u`` is an exact 0, fused or not, from the
+    same compiled kernel as the steps.
     """
-    return np.array([[0.0, 0.0, 1.0, 0.0]])
+    return np.array([[-1.0, 1.0, 0.0]])
 
 
 def scratch(nbands, nsteps, nx, chunk=None):

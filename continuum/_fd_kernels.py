@@ -125,9 +125,9 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         Pressure polynomial (used otherwise).
     par : (4,) float64 ndarray
         :data:`PAR`.
-    g : (>= nsteps, 4) float64 ndarray
-        Row ``lv``: ``(c_1, c_s, c_n, c_xi)`` of the update
-        ``u' = c_1 u + c_s (u + h) + c_n N + c_xi amp xi`` and
+    g : (>= nsteps, 3) float64 ndarray
+        Row ``lv``: ``(c_s, c_n, c_xi)`` of the update
+        ``u' = u + c_s (u + h) + c_n N + c_xi amp xi`` and
         ``h' = -u - 2 dt N`` (:func:`._fd.scheme_table`).
     """
     dx, dy, dt, amp = par[0], par[1], par[2], par[3]
@@ -137,8 +137,8 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
     i2dy = 0.5 / dy
     i4dxdy = 0.25 / (dx * dy)
     dt2 = 2.0 * dt
-    c_1, c_s, c_n = g[lv, 0], g[lv, 1], g[lv, 2]
-    c_xi = g[lv, 3] * amp
+    c_s, c_n = g[lv, 0], g[lv, 1]
+    c_xi = g[lv, 2] * amp
     out = lv + 1
     alpha0, alpha_rho, beta_t, d_t_t = cs[0], cs[1], cs[2], cs[3]
     lam1_t, lam2_t, lam3_t, d_b, d_2, d_rho, v0, rho0 = (cs[4], cs[5], cs[6], cs[7], cs[8],
@@ -217,9 +217,9 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
             hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
             alpha, beta, lam1, lam2, lam3, d_t, c_db, c_d2, slope)
         n0 = _terms.continuity(gxx + gyy, lap_r, vc, c_drho)
-        a0 = c_1 * r + c_s * (r + hring[hs, 0, 0, i]) + c_n * n0
-        a1 = c_1 * ux + c_s * (ux + hring[hs, 0, 1, i]) + c_n * fx
-        a2 = c_1 * uy + c_s * (uy + hring[hs, 0, 2, i]) + c_n * fy
+        a0 = r + c_s * (r + hring[hs, 0, 0, i]) + c_n * n0
+        a1 = ux + c_s * (ux + hring[hs, 0, 1, i]) + c_n * fx
+        a2 = uy + c_s * (uy + hring[hs, 0, 2, i]) + c_n * fy
         if noise is not None:
             a1 += c_xi * noise[lv, 0, j, i - 1]
             a2 += c_xi * noise[lv, 1, j, i - 1]
@@ -345,8 +345,8 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
     starts : (nb + 1,) int64 ndarray
         Band boundaries (:func:`._fd.band_starts`); the result does not depend on them.
     nsteps : int
-    scheme : (>= nsteps, 4) float64 ndarray
-        Per step ``(c_1, c_s, c_n, c_xi)`` (:func:`._fd.scheme_table`); the
+    scheme : (>= nsteps, 3) float64 ndarray
+        Per step ``(c_s, c_n, c_xi)`` (:func:`._fd.scheme_table`); the
         row of :func:`._fd.rhs_scheme` writes the right-hand side of ``u_in`` instead.
     cs : (12,) float64 ndarray
         Scalars in the order of ``_coefficients.SCALARS``.

@@ -118,8 +118,12 @@ def anisotropic_diffusion(wx, wy, hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y, d_2)
 
 @_jit
 def continuity(div_w, lap_rho, v0, d_rho):
-    """``d_t rho = -v0 div(w) + D_rho lap(rho)``."""
-    return -v0 * div_w + d_rho * lap_rho
+    """``d_t rho = -v0 div(w) + D_rho lap(rho)`` (the diffusion is skipped when D_rho is
+    0, as in :func:`momentum`)."""
+    out = -v0 * div_w
+    if d_rho != 0.0:
+        out = out + d_rho * lap_rho
+    return out
 
 
 @_jit
@@ -133,6 +137,10 @@ def momentum(wx, wy, dxrho, dyrho, gxx, gxy, gyx, gyy, lapx, lapy,
     coefficients ``lambda1`` ... ``d_2`` must be scalars (they select the terms).
     ``slope`` is P'(rho) from :func:`pressure_slope` (the caller evaluates it: passing
     the coefficient array down to every grid point would cost reference counting).
+    ``lapx, lapy`` serve D_T only: the finite-difference kernel may hand them in already
+    multiplied by a constant D_T, with ``d_t = 1`` (likewise ``dxrho, dyrho`` times P'
+    with ``slope = 1`` in its minimal variant), so a new term uses the second derivatives
+    ``h..`` and the gradients ``g..``, never these.
 
     Returns
     -------
