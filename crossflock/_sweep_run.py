@@ -193,9 +193,18 @@ def run_sweep(sweep: Sweep, outdir, *, workers=None, scheduler=None, progress=No
 
 
 def _silence_dask():
+    """Mute dask's and tornado's loggers for the teardown after an interrupt.
+
+    Every logger under these names, not only the top ones: dask's logging set-up gives
+    some children their own level and handler (``tornado.application`` at ERROR, for
+    one), so muting the parent alone let a teardown traceback through.
+    """
     import logging
 
-    for name in ("distributed", "tornado", "asyncio"):
+    tops = ("distributed", "tornado", "asyncio")
+    names = [name for name in list(logging.root.manager.loggerDict)
+             if name.split(".")[0] in tops]
+    for name in (*tops, *names):
         logging.getLogger(name).setLevel(logging.CRITICAL + 1)
 
 

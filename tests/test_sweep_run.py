@@ -179,3 +179,25 @@ def test_embedded_scheduler_listens_on_localhost_only():
     finally:
         client.close()
         cluster.close()
+
+
+def test_interrupt_teardown_mutes_every_dask_logger():
+    # dask's logging set-up gives children such as tornado.application their own level
+    # and handler; after an interrupt none of them may print a teardown traceback
+    import logging
+
+    import distributed  # noqa: F401  (its import configures the loggers)
+
+    from crossflock._sweep_run import _silence_dask
+
+    names = ["distributed", "distributed.client", "tornado", "tornado.application",
+             "asyncio"]
+    saved = {name: logging.getLogger(name).level for name in names}
+    assert logging.getLogger("tornado.application").isEnabledFor(logging.ERROR)
+    try:
+        _silence_dask()
+        for name in names:
+            assert not logging.getLogger(name).isEnabledFor(logging.CRITICAL), name
+    finally:
+        for name, level in saved.items():
+            logging.getLogger(name).setLevel(level)
