@@ -8,6 +8,8 @@ scheme tables, scratch), chooses the block length and keeps the solver state.
 
 from __future__ import annotations
 
+import math
+
 import numba
 import numpy as np
 
@@ -61,9 +63,15 @@ def row_stride(nx):
     return stride
 
 
+def _scratch_shapes(nsteps, nx, chunk):
+    """Shapes of one band's ring and history ring (see :func:`._fd_kernels._band`)."""
+    stride = row_stride(nx)
+    return (nsteps + 1, chunk + 2, 3, stride), (nsteps + chunk, 1, 3, stride)
+
+
 def scratch_bytes(nsteps, nx):
     """Bytes of one band's :func:`scratch` for blocks of ``nsteps`` on a grid ``nx`` wide."""
-    return ((nsteps + 1) * (ROW_CHUNK + 2) + nsteps + ROW_CHUNK) * 3 * row_stride(nx) * 8
+    return sum(8 * math.prod(shape) for shape in _scratch_shapes(nsteps, nx, ROW_CHUNK))
 
 
 def block_steps(nx, ny):
@@ -128,10 +136,8 @@ def rhs_scheme():
 def scratch(nbands, nsteps, nx, chunk=None):
     """Zeroed ``(ring, hring, stats)`` scratch for :func:`._fd_kernels.fd_advance_kernel`
     (``chunk`` rows per step and sweep of the wavefront, default :data:`ROW_CHUNK`)."""
-    m = ROW_CHUNK if chunk is None else int(chunk)
-    stride = row_stride(nx)
-    return (np.zeros((nbands, nsteps + 1, m + 2, 3, stride)),
-            np.zeros((nbands, nsteps + m, 1, 3, stride)), np.zeros((nbands, 3)))
+    ring, hring = _scratch_shapes(nsteps, nx, ROW_CHUNK if chunk is None else int(chunk))
+    return np.zeros((nbands, *ring)), np.zeros((nbands, *hring)), np.zeros((nbands, 3))
 
 
 class FiniteDifferenceSolver(ContinuumSolver):

@@ -227,12 +227,12 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         b1 = -ux - dt2 * fx
         b2 = -uy - dt2 * fy
         if fl is not None:  # solid cells stay 0
-            b0, b1, b2 = _solid_zero(b0, b1, b2, fl[j + 1, i] != 0)
+            fc = fl[j + 1, i] != 0
+            a0, a1, a2 = _solid_zero(a0, a1, a2, fc)
+            b0, b1, b2 = _solid_zero(b0, b1, b2, fc)
         hring[hs, 0, 0, i] = b0
         hring[hs, 0, 1, i] = b1
         hring[hs, 0, 2, i] = b2
-        if fl is not None:
-            a0, a1, a2 = _solid_zero(a0, a1, a2, fl[j + 1, i] != 0)
         ring[out, sb, 0, i] = a0
         ring[out, sb, 1, i] = a1
         ring[out, sb, 2, i] = a2

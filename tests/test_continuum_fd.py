@@ -224,8 +224,8 @@ def test_block_length_fits_the_cache_budget():
             assert k == _fd.BLOCK_MIN or (ring.nbytes + hring.nbytes <= _fd.SCRATCH_BYTES
                                           and k * _fd.MARGIN_SHARE <= ny)
             # the largest block within both limits
-            assert k == _fd.BLOCK_MAX or k * _fd.MARGIN_SHARE + _fd.MARGIN_SHARE > ny or (
-                _fd.scratch_bytes(k + 1, nx) > _fd.SCRATCH_BYTES)
+            assert (k == _fd.BLOCK_MAX or (k + 1) * _fd.MARGIN_SHARE > ny
+                    or _fd.scratch_bytes(k + 1, nx) > _fd.SCRATCH_BYTES)
     for nx in (510, 512, 1000):
         stride = _fd.row_stride(nx)
         assert stride >= nx + 2 and stride % 8 == 0 and (stride * 8) % 4096 != 0
