@@ -19,7 +19,7 @@ from ._solver import ContinuumSolver
 
 __all__ = ["FiniteDifferenceSolver", "padded_fluid", "plain_rows", "band_starts",
            "scheme_table", "rhs_scheme", "extra_terms", "row_stride", "scratch",
-           "block_steps", "scratch_bytes", "SERIAL_BELOW"]
+           "block_steps", "scratch_bytes", "aligned_zeros", "SERIAL_BELOW"]
 
 # Grids with fewer points than this run the serial kernel (see fd_advance_kernel_serial).
 SERIAL_BELOW = 128 * 256
@@ -37,6 +37,9 @@ MARGIN_SHARE = 8
 # rows are then reused from the cache for ROW_CHUNK rows. 4 measured 7% faster than 1 at
 # 512 x 512; 2-8 were within noise of each other.
 ROW_CHUNK = 4
+# Byte alignment of the first interior column of every scratch row and of the state and
+# noise rows (see aligned_zeros).
+ALIGN = 64
 
 
 def extra_terms(cs, pressure, kinetic):
@@ -80,6 +83,23 @@ def block_steps(nx, ny):
     while k > BLOCK_MIN and scratch_bytes(k, nx) > SCRATCH_BYTES:
         k -= 1
     return int(max(BLOCK_MIN, k))
+
+
+def aligned_zeros(shape, lead=0):
+    """Zeros of ``shape`` (float64, C order) whose element ``lead`` of the flat array sits
+    on an :data:`ALIGN`-byte boundary.
+
+    With a last axis of a multiple of 8 elements, element ``lead`` of every row is then
+    aligned. The kernels' vector loads and stores run over the interior columns; when
+    those straddle cache lines, half the loads are split in two. Measured at 512 x 512 on
+    the 2-core machine: ``advance`` 0.56 against 0.61 ms per step with the interior
+    misaligned by 8 bytes, the state of numpy's default 16-byte alignment.
+    """
+    n = math.prod(shape)
+    pad = ALIGN // 8
+    buf = np.zeros(n + pad)
+    start = (-(buf.ctypes.data // 8) - lead) % pad
+    return buf[start:start + n].reshape(shape)
 
 
 def padded_fluid(fluid, channel):
@@ -137,7 +157,9 @@ def scratch(nbands, nsteps, nx, chunk=None):
     """Zeroed ``(ring, hring, stats)`` scratch for :func:`._fd_kernels.fd_advance_kernel`
     (``chunk`` rows per step and sweep of the wavefront, default :data:`ROW_CHUNK`)."""
     ring, hring = _scratch_shapes(nsteps, nx, ROW_CHUNK if chunk is None else int(chunk))
-    return np.zeros((nbands, *ring)), np.zeros((nbands, *hring)), np.zeros((nbands, 3))
+    # column 1 is the first interior column (column 0 holds the periodic copy)
+    return (aligned_zeros((nbands, *ring), lead=1), aligned_zeros((nbands, *hring), lead=1),
+            np.zeros((nbands, 3)))
 
 
 class FiniteDifferenceSolver(ContinuumSolver):
@@ -158,7 +180,7 @@ class FiniteDifferenceSolver(ContinuumSolver):
         self.block = block_steps(self.nx, self.ny)
         self.guard_steps = self.block
         shape = (3, self.ny, self.nx)
-        self._sets = [(np.zeros(shape), np.zeros(shape)) for _ in range(3)]
+        self._sets = [(aligned_zeros(shape), aligned_zeros(shape)) for _ in range(3)]
         self._cur = 0
         self._good_set = None
         self._good_time = 0.0
@@ -172,7 +194,7 @@ class FiniteDifferenceSolver(ContinuumSolver):
         self._scratch = {}  # per band count (the thread count may change between calls)
         self._schemes = {first: scheme_table(self.block, first, self.dt)
                          for first in (True, False)}
-        self._noise_buf = (np.empty((self.block, 2, self.ny, self.nx))
+        self._noise_buf = (aligned_zeros((self.block, 2, self.ny, self.nx))
                            if self._noise_amp != 0.0 else None)
         self._stats = None  # (n_steps, (finite, min rho, max |w|^2)) from the kernel
 

@@ -231,6 +231,18 @@ def test_block_length_fits_the_cache_budget():
         assert stride >= nx + 2 and stride % 8 == 0 and (stride * 8) % 4096 != 0
 
 
+def test_scratch_and_state_rows_start_on_cache_lines():
+    for lead in (0, 1, 5):
+        a = _fd.aligned_zeros((3, 4, 16), lead=lead)
+        assert a.shape == (3, 4, 16) and a.flags.c_contiguous and not a.any()
+        assert (a.ctypes.data + 8 * lead) % _fd.ALIGN == 0
+    ring, hring, _ = _fd.scratch(2, 5, 100)
+    for buf in (ring, hring):  # the first interior column of every row of every band
+        assert all(row[1:].ctypes.data % _fd.ALIGN == 0 for row in buf.reshape(-1, buf.shape[-1]))
+    s = FiniteDifferenceSolver(CASES["periodic-minimal"])
+    assert all(u.ctypes.data % _fd.ALIGN == 0 for pair in s._sets for u in pair)
+
+
 @pytest.mark.parametrize("coefficients", [MINIMAL, dict(FULL, noise_strength=0.0)])
 def test_rhs_on_rectangular_cells_converges_at_second_order(coefficients):
     # Constant coefficients are folded into the stencil weights with dx and dy apart
