@@ -25,14 +25,14 @@ __all__ = ["FiniteDifferenceSolver", "padded_fluid", "plain_rows", "band_starts"
 SERIAL_BELOW = 128 * 256
 # Steps per pass over memory in FiniteDifferenceSolver.advance (see "Temporal blocking"):
 # as many as keep one band's scratch (:func:`scratch`) within SCRATCH_BYTES, between
-# BLOCK_MIN and BLOCK_MAX, and at most ny / MARGIN_SHARE so that the margins a band
-# recomputes (about K rows per pass) stay a small share of its rows. Measured at 512 x 512
-# on the 2-core machine (512 KiB L2 per core, shared L3): the state's memory traffic falls
-# as 1/K and outweighs the rings spilling from L2 to L3; K = 20-40 were within a few
-# percent of each other and 6-10% faster than K = 14.
+# BLOCK_MIN and BLOCK_MAX, and at most ny / BAND_SHARE so that several bands (threads) of
+# the 2 K rows a band needs fit the grid. Measured at 512 x 512 on the 2-core machine
+# (512 KiB L2 per core, shared L3): the state's memory traffic falls as 1/K and outweighs
+# the rings spilling from L2 to L3; K = 20-40 were within a few percent of each other and
+# 6-10% faster than K = 14 (with the split tiling, K = 24-64 within noise).
 SCRATCH_BYTES = 3 * 1024 * 1024
-BLOCK_MIN, BLOCK_MAX = 4, 24
-MARGIN_SHARE = 8
+BLOCK_MIN, BLOCK_MAX = 4, 32
+BAND_SHARE = 8
 # Rows per step in each sweep of the wavefront (see _fd_kernels._band): a step's input
 # rows are then reused from the cache for ROW_CHUNK rows. 4 measured 7% faster than 1 at
 # 512 x 512; 2-8 were within noise of each other.
@@ -67,22 +67,27 @@ def row_stride(nx):
 
 
 def _scratch_shapes(nsteps, nx, chunk):
-    """Shapes of one band's ring and history ring (see :func:`._fd_kernels._band`)."""
+    """Shapes of one band's ring, history ring and edge rows (see
+    :func:`._fd_kernels._tile`)."""
     stride = row_stride(nx)
-    return (nsteps + 1, chunk + 2, 3, stride), (nsteps + chunk, 1, 3, stride)
+    return ((nsteps + 1, chunk + 2, 3, stride), (nsteps + chunk, 1, 3, stride),
+            (nsteps, 6, 3, stride))
 
 
 def scratch_bytes(nsteps, nx):
-    """Bytes of one band's :func:`scratch` for blocks of ``nsteps`` on a grid ``nx`` wide."""
-    return sum(8 * math.prod(shape) for shape in _scratch_shapes(nsteps, nx, ROW_CHUNK))
+    """Bytes of one band's rings (:func:`scratch`) for blocks of ``nsteps`` on a grid
+    ``nx`` wide: what cycles through the caches during a block. The edge rows are
+    written once and read once per block, so they are not counted."""
+    ring, hring, _ = _scratch_shapes(nsteps, nx, ROW_CHUNK)
+    return 8 * (math.prod(ring) + math.prod(hring))
 
 
 def block_steps(nx, ny):
     """Steps per block of :meth:`FiniteDifferenceSolver.advance` on an ``ny x nx`` grid."""
-    k = min(BLOCK_MAX, ny // MARGIN_SHARE)
+    k = min(BLOCK_MAX, ny // BAND_SHARE)
     while k > BLOCK_MIN and scratch_bytes(k, nx) > SCRATCH_BYTES:
         k -= 1
-    return int(max(BLOCK_MIN, k))
+    return int(min(max(BLOCK_MIN, k), max(1, ny // 2)))  # one band: 2 K rows
 
 
 def aligned_zeros(shape, lead=0):
@@ -154,12 +159,13 @@ def rhs_scheme():
 
 
 def scratch(nbands, nsteps, nx, chunk=None):
-    """Zeroed ``(ring, hring, stats)`` scratch for :func:`._fd_kernels.fd_advance_kernel`
-    (``chunk`` rows per step and sweep of the wavefront, default :data:`ROW_CHUNK`)."""
-    ring, hring = _scratch_shapes(nsteps, nx, ROW_CHUNK if chunk is None else int(chunk))
+    """Zeroed ``(ring, hring, edge, stats)`` scratch for
+    :func:`._fd_kernels.fd_advance_kernel` (``chunk`` rows per step and sweep of the
+    wavefront, default :data:`ROW_CHUNK`)."""
+    shapes = _scratch_shapes(nsteps, nx, ROW_CHUNK if chunk is None else int(chunk))
     # column 1 is the first interior column (column 0 holds the periodic copy)
-    return (aligned_zeros((nbands, *ring), lead=1), aligned_zeros((nbands, *hring), lead=1),
-            np.zeros((nbands, 3)))
+    return tuple(aligned_zeros((nbands, *shape), lead=1) for shape in shapes) + (
+        np.zeros((2 * nbands, 3)),)
 
 
 class FiniteDifferenceSolver(ContinuumSolver):
@@ -246,7 +252,9 @@ class FiniteDifferenceSolver(ContinuumSolver):
     # ------------------------------------------------------------------ stepping
     def _bands(self):
         parallel = self.nx * self.ny >= SERIAL_BELOW
-        nb = numba.get_num_threads() if parallel else 1
+        threads = numba.get_num_threads() if parallel else 1
+        # bands of at least 2 K rows (see _fd_kernels.check_bands)
+        nb = max(1, min(threads, self.ny // (2 * self.block)))
         if nb not in self._scratch:
             self._scratch[nb] = (band_starts(self.ny, nb),) + scratch(nb, self.block, self.nx)
         kernel = fd_advance_kernel if parallel else fd_advance_kernel_serial
@@ -266,10 +274,10 @@ class FiniteDifferenceSolver(ContinuumSolver):
         return buf
 
     def _run(self, u_in, h_in, u_out, h_out, nsteps, scheme, noise=None):
-        kernel, starts, ring, hring, stats = self._bands()
+        kernel, starts, ring, hring, edge, stats = self._bands()
         kernel(u_in, h_in, u_out, h_out, self._fl, self._plain, self.geometry.channel,
                starts, nsteps, scheme, self.coef.scalars,
-               self._kin, *self._terms, self._par, noise, ring, hring,
+               self._kin, *self._terms, self._par, noise, ring, hring, edge,
                stats)
         return stats
 

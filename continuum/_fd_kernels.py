@@ -27,17 +27,23 @@ checked by :func:`crossflock._stability.check_continuum_dt`.
 
 Temporal blocking
 -----------------
-One explicit step couples a row only to the rows next to it, so K steps of a band of
-rows depend only on that band widened by K rows. :func:`fd_advance_kernel` advances K
-steps in one pass over memory: each band streams its widened rows through a wavefront of
-ring buffers (level s holds the last rows of step s; all levels together fit the caches,
-see ``_fd.block_steps``) and writes the band's rows after step K. The state is read and
-written once per K steps instead of once per step; one step per pass is limited by
-memory bandwidth on grids larger than the cache (measured in
-``benchmarks/bench_continuum.py``). Rows of the widened margins are computed by both
-bands that need them, with the same arithmetic, so the result does not depend on the
-number of bands (threads) nor on K: ``advance(K)`` equals K calls of ``step()`` bit for
-bit.
+One explicit step couples a row only to the rows next to it, so K steps can be taken in
+one pass over memory (:func:`fd_advance_kernel`), with split tiling over bands of rows:
+
+1. each band ``[lo, hi)`` (one per thread) advances the trapezoid that depends on its own
+   rows only, ``[lo + s, hi - s)`` at step s, and keeps its two edge rows of each step
+   (and the history of the row it leaves to its neighbour) in a small edge buffer;
+2. then a triangle at each band boundary b computes ``[b - s, b + s)`` at step s from
+   those edge rows.
+
+Each tile streams its rows through a wavefront of ring buffers (level s holds the last
+rows of step s; all levels together fit the caches, see ``_fd.block_steps``) and writes
+its rows after step K. The state is read and written once per K steps instead of once
+per step; one step per pass is limited by memory bandwidth on grids larger than the cache
+(measured in ``benchmarks/bench_continuum.py``). Every row of every step is computed once,
+with the same arithmetic, so the result does not depend on the number of bands (threads)
+nor on K: ``advance(K)`` equals K calls of ``step()`` bit for bit. Bands need at least 2K
+rows.
 
 References
 ----------
@@ -45,6 +51,8 @@ D. Wonnacott, time skewing (IPDPS 2000; title and venue from memory): blocking s
 time steps of an explicit stencil so that the cache, not memory, feeds the arithmetic.
 T. Muranushi & J. Makino, "Optimal Temporal Blocking for Stencil Computation", Procedia
 Computer Science 51, 1303 (2015): the bytes-per-flop reduction it buys and its limit.
+Split tiling (trapezoids, then inverted triangles between them) as in T. Grosser et al.,
+"Split tiling for GPUs" (GPGPU-6, 2013; title and venue from memory).
 """
 
 from __future__ import annotations
@@ -263,16 +271,49 @@ def _store_row(src, a, b, dst, j):
 
 
 @numba.njit(cache=True)
-def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, cs, kin,
-          extra, p_lin, pressure, par, noise, ring, hring, stats):
-    """Advance rows ``[lo, hi)`` by ``nsteps`` steps (wavefront over the widened band).
+def _copy_row(src, a, b, dst, c, d):
+    """Copy ``src[a, b]`` into ``dst[c, d]`` (rows of ``(3, stride)``, periodic copies
+    included)."""
+    for f in range(src.shape[2]):
+        for i in range(src.shape[3]):
+            dst[c, d, f, i] = src[a, b, f, i]
 
-    ``ring`` : (>= nsteps + 1, m + 2, 3, stride) rows of each step; ``hring`` :
-    (>= nsteps + m, 1, 3, stride) history rows in flight. Each sweep of the wavefront
-    takes ``m`` rows per step (step s: rows ``T - s .. T - s + m - 1``), so a step's
-    input rows are read while still in the cache for the next ``m`` rows instead of one.
-    ``stats`` (3,): written with the guard statistics ``(finite, min rho, max |w|^2)``
-    of the band's output rows.
+
+@numba.njit(cache=True, inline="always")
+def _held(tri, lo, hi, wall_lo, wall_hi, s, k):
+    """Rows ``[a, z)`` a tile holds at level (step) ``s``.
+
+    A band's trapezoid holds ``[lo + s, hi - s)`` (its input rows at ``s = 0``; a side at
+    a channel wall does not shrink). The triangle at boundary row ``lo`` computes
+    ``[lo - s, lo + s)`` and, below ``K``, also holds the two band rows on each side that
+    its next level reads.
+    """
+    if tri:
+        return (lo - s, lo + s) if s == k else (lo - s - 2, lo + s + 2)
+    return (lo if wall_lo else lo + s), (hi if wall_hi else hi - s)
+
+
+@numba.njit(cache=True)
+def _tile(tri, lo, hi, wall_lo, wall_hi, e_lo, e_hi, u_in, h_in, u_out, h_out, fl, plain,
+          nsteps, scheme, cs, kin, extra, p_lin, pressure, par, noise, ring, hring, edge,
+          stats):
+    """Advance one tile of the split tiling by ``nsteps`` steps (a wavefront over rows).
+
+    ``tri`` False: the trapezoid of band ``[lo, hi)``, which reads only the band's input
+    rows. Below step K it saves its edge rows for the triangles: rows ``lo + s, lo + s + 1``
+    and the history of row ``lo + s`` into ``edge[e_lo, s]`` slots 2, 3, 5, and rows
+    ``hi - s - 2, hi - s - 1`` and the history of row ``hi - s - 1`` into ``edge[e_hi, s]``
+    slots 0, 1, 4 (not at a channel wall).
+    ``tri`` True: the triangle at boundary row ``lo`` (band ``e_lo - 1`` below, band
+    ``e_lo`` above), run after every trapezoid: it takes the band rows it needs from
+    ``edge[e_lo]`` and a row's history from there when it first computes the row.
+
+    Together the tiles compute every row of every step exactly once. ``ring`` :
+    (>= nsteps + 1, m + 2, 3, stride) rows of each step; ``hring`` : (>= nsteps + m, 1, 3,
+    stride) history rows in flight. Each sweep of the wavefront takes ``m`` rows per step
+    (step s: rows ``T - s .. T - s + m - 1``), so a step's input rows are read while still
+    in the cache for the next ``m`` rows instead of one. ``stats`` (3,): written with the
+    guard statistics ``(finite, min rho, max |w|^2)`` of the tile's output rows.
     """
     finite = True
     rmin = np.inf
@@ -282,35 +323,44 @@ def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, 
     m = ring.shape[1] - 2  # rows per step and sweep
     ns = m + 2  # ring slots per step: the m new rows and the two before them
     nh = k + m  # history rows in flight
-    if channel:
-        r_lo = max(lo - k, 0)
-        r_hi = min(hi + k, ny)
-    else:
-        r_lo = lo - k
-        r_hi = hi + k
-    wall_lo = channel and r_lo == 0
-    wall_hi = channel and r_hi == ny
-    for t in range(r_lo, r_hi + k, m):
+    t0, t1 = (lo - 2, lo + 2 * k + 3) if tri else (lo, hi + k + 1)
+    el, eh = edge[e_lo], edge[e_hi]
+    for t in range(t0, t1, m):
         for s in range(k + 1):
-            lo_s = r_lo if wall_lo else r_lo + s
-            hi_s = r_hi if wall_hi else r_hi - s
-            for r in range(max(t - s, lo_s), min(t - s + m, hi_s)):
+            a, z = _held(tri, lo, hi, wall_lo, wall_hi, s, k)
+            for r in range(max(t - s, a), min(t - s + m, z)):
                 j = r % ny
                 hs = r % nh
-                if s == 0:
-                    _load_row(u_in, j, ring, 0, r % ns)
-                    _load_row(h_in, j, hring, hs, 0)
+                sb = r % ns
+                if tri and (r < lo - s or r >= lo + s):  # a band's row, saved there
+                    _copy_row(el, s, r - (lo - s - 2) if r < lo else r - (lo + s) + 2,
+                              ring, s, sb)
                     continue
-                # rows j-1, j, j+1 of step s-1 (all done: rows up to t - s + m of step
-                # s-1 were taken earlier in this sweep) sit in slots (r-1..r+1) % ns
-                sa, sb, sc = (r - 1) % ns, r % ns, (r + 1) % ns
-                if plain[j]:
-                    _row(ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
-                         extra, p_lin, pressure, par, scheme)
+                if tri and (r == lo - s or r == lo + s - 1):  # first step here: history
+                    _copy_row(el, s - 1, 4 if r < lo else 5, hring, hs, 0)
+                if s == 0:  # (trapezoids only)
+                    _load_row(u_in, j, ring, 0, sb)
+                    _load_row(h_in, j, hring, hs, 0)
                 else:
-                    _row(ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
-                         extra, p_lin, pressure, par, scheme)
-                if s == k and lo <= r < hi:
+                    # rows j-1, j, j+1 of step s-1 (all done: rows up to t - s + m of
+                    # step s-1 were taken earlier in this sweep) sit in slots (r-1..r+1) % ns
+                    sa, sc = (r - 1) % ns, (r + 1) % ns
+                    if plain[j]:
+                        _row(ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
+                             extra, p_lin, pressure, par, scheme)
+                    else:
+                        _row(ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
+                             extra, p_lin, pressure, par, scheme)
+                if not tri and s < k:  # edge rows for the triangles
+                    if not wall_hi and r >= hi - s - 2:
+                        _copy_row(ring, s, sb, eh, s, r - (hi - s - 2))
+                        if r == hi - s - 1:
+                            _copy_row(hring, hs, 0, eh, s, 4)
+                    if not wall_lo and r < lo + s + 2:
+                        _copy_row(ring, s, sb, el, s, r - (lo + s) + 2)
+                        if r == lo + s:
+                            _copy_row(hring, hs, 0, el, s, 5)
+                if s == k:
                     _store_row(ring, s, sb, u_out, j)
                     ok, row_min, row_max = field_stats(u_out[0, j:j + 1], u_out[1, j:j + 1],
                                                        u_out[2, j:j + 1])
@@ -323,10 +373,22 @@ def _band(lo, hi, u_in, h_in, u_out, h_out, fl, plain, channel, nsteps, scheme, 
     stats[2] = w2max
 
 
+@numba.njit(cache=True)
+def check_bands(starts, nsteps, channel):
+    """Raise unless every band has at least ``2 nsteps`` rows (the trapezoids must keep
+    their edge rows up to step K - 1); a channel of one band has no edge."""
+    nb = starts.shape[0] - 1
+    if channel and nb == 1:
+        return
+    for b in range(nb):
+        if starts[b + 1] - starts[b] < 2 * nsteps:
+            raise ValueError("finite-difference bands must have at least 2 * nsteps rows")
+
+
 @numba.njit(cache=True, parallel=True)
 def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nsteps, scheme,
-                      cs, kin, extra, p_lin, pressure, par, noise, ring, hring, stats):
-    """Advance the masked-grid state ``nsteps`` explicit SBDF2 steps (bands in parallel).
+                      cs, kin, extra, p_lin, pressure, par, noise, ring, hring, edge, stats):
+    """Advance the masked-grid state ``nsteps`` explicit SBDF2 steps (tiles in parallel).
 
     Parameters
     ----------
@@ -343,7 +405,8 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
     channel : bool
         Walls beyond rows 0 and ny - 1 (else periodic in y); always periodic in x.
     starts : (nb + 1,) int64 ndarray
-        Band boundaries (:func:`._fd.band_starts`); the result does not depend on them.
+        Band boundaries (:func:`._fd.band_starts`), each band at least ``2 nsteps`` rows
+        (:func:`check_bands`); the result does not depend on them.
     nsteps : int
     scheme : (>= nsteps, 3) float64 ndarray
         Per step ``(c_s, c_n, c_xi)`` (:func:`._fd.scheme_table`); the
@@ -362,31 +425,52 @@ def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nste
         Standard normal increments of each step.
     ring : (nb, >= nsteps + 1, m + 2, 3, stride) float64 ndarray
     hring : (nb, >= nsteps + m, 1, 3, stride) float64 ndarray
-        Scratch of each band (:func:`._fd.scratch`); larger scratch serves shorter
-        blocks.
-    stats : (nb, 3) float64 ndarray
-        Written: per band ``(finite, min rho, max |w|^2)`` of the output state
+    edge : (nb, >= nsteps, 6, 3, stride) float64 ndarray
+        Scratch (:func:`._fd.scratch`): the rings of each thread's tile and the edge rows
+        of each band boundary; larger scratch serves shorter blocks.
+    stats : (2 nb, 3) float64 ndarray
+        Written: per tile ``(finite, min rho, max |w|^2)`` of its output rows
         (:mod:`._guard`; order-free reductions, so thread-count independent).
     """
-    for b in prange(starts.shape[0] - 1):
-        _band(starts[b], starts[b + 1], u_in, h_in, u_out, h_out, fl, plain, channel,
-              nsteps, scheme, cs, kin, extra, p_lin, pressure, par, noise, ring[b],
-              hring[b], stats[b])
+    check_bands(starts, nsteps, channel)
+    nb = starts.shape[0] - 1
+    for b in prange(nb):  # the trapezoids
+        _tile(False, starts[b], starts[b + 1], channel and b == 0, channel and b == nb - 1,
+              b, (b + 1) % nb, u_in, h_in, u_out, h_out, fl, plain, nsteps, scheme, cs, kin,
+              extra, p_lin, pressure, par, noise, ring[b], hring[b], edge, stats[b])
+    for b in prange(nb):  # then the triangles at the band boundaries (none at walls)
+        if channel and b == 0:
+            stats[nb, 0], stats[nb, 1], stats[nb, 2] = 1.0, np.inf, 0.0
+        else:
+            _tile(True, starts[b], starts[b], False, False, b, b, u_in, h_in, u_out, h_out,
+                  fl, plain, nsteps, scheme, cs, kin, extra, p_lin, pressure, par, noise,
+                  ring[b], hring[b], edge, stats[nb + b])
 
 
 def fd_advance_kernel_serial(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nsteps,
                              scheme, cs, kin, extra, p_lin, pressure, par, noise, ring, hring,
-                             stats):
+                             edge, stats):
     """:func:`fd_advance_kernel` on the calling thread (same arguments, same result).
 
     Small grids use it: a parallel region per call costs more than it saves there, and
     on shared cores a descheduled worker thread stalls every call (measured 13x slower
     on a 64 x 64 grid with 2 threads on a loaded 2-core machine). It is a Python loop
-    over the compiled bands rather than one more compiled function because numba
+    over the compiled tiles rather than one more compiled function because numba
     re-optimizes everything a compiled function calls: a layer less saves seconds of
     compilation per kernel variant on a fresh machine.
     """
-    for b in range(starts.shape[0] - 1):
-        _band(int(starts[b]), int(starts[b + 1]), u_in, h_in, u_out, h_out, fl, plain,
-              bool(channel), int(nsteps), scheme, cs, kin, extra, p_lin, pressure, par, noise,
-              ring[b], hring[b], stats[b])
+    check_bands(starts, int(nsteps), bool(channel))
+    nb = starts.shape[0] - 1
+    channel, nsteps = bool(channel), int(nsteps)
+    for b in range(nb):
+        _tile(False, int(starts[b]), int(starts[b + 1]), channel and b == 0,
+              channel and b == nb - 1, b, (b + 1) % nb, u_in, h_in, u_out, h_out, fl, plain,
+              nsteps, scheme, cs, kin, extra, p_lin, pressure, par, noise, ring[b], hring[b],
+              edge, stats[b])
+    for b in range(nb):
+        if channel and b == 0:
+            stats[nb] = (1.0, np.inf, 0.0)
+        else:
+            _tile(True, int(starts[b]), int(starts[b]), False, False, b, b, u_in, h_in, u_out,
+                  h_out, fl, plain, nsteps, scheme, cs, kin, extra, p_lin, pressure, par,
+                  noise, ring[b], hring[b], edge, stats[nb + b])

@@ -60,11 +60,11 @@ def test_blocked_advance_equals_single_steps(name):
 
 @pytest.mark.parametrize("channel", [False, True])
 def test_kernel_result_independent_of_bands_chunks_and_serial_or_parallel(channel):
-    # overlapped bands recompute their margins with the same arithmetic, so any band
-    # split (and the thread count that picks it) and any number of rows per wavefront
+    # the tiles compute every row of every step once, with the same arithmetic, so any
+    # band split (and the thread count that picks it) and any number of rows per wavefront
     # sweep gives the same numbers
     rng = np.random.default_rng(9)
-    ny, nx, k = 24, 20, 4
+    ny, nx, k = 56, 20, 4
     fluid = np.ones((ny, nx), np.uint8)
     fluid[8:12, 5:9] = 0
     fl = _fd.padded_fluid(fluid, channel)
@@ -78,11 +78,11 @@ def test_kernel_result_independent_of_bands_chunks_and_serial_or_parallel(channe
     for kernel, nb, chunk in ((serial, 1, 1), (parallel, 1, 4), (parallel, 2, 2),
                               (parallel, 3, 4), (serial, 7, 3), (serial, 1, 9)):
         u_out, h_out = np.zeros_like(u), np.zeros_like(h)
-        ring, hring, stats = _fd.scratch(nb, k, nx, chunk)
+        ring, hring, edge, stats = _fd.scratch(nb, k, nx, chunk)
         kernel(u, h, u_out, h_out, fl, _fd.plain_rows(fl), channel, _fd.band_starts(ny, nb),
                k, _fd.scheme_table(k, False, 0.01), cs, kin, 1, 0.0,
                np.array([0.5, 0.1, 0.02]), np.array([0.5, 0.5, 0.01, 0.1]), noise, ring,
-               hring, stats)
+               hring, edge, stats)
         outs.append((u_out, h_out, (stats[:, 0].all(), stats[:, 1].min(),
                                     stats[:, 2].max())))
     for u_out, h_out, st in outs[1:]:
@@ -92,6 +92,25 @@ def test_kernel_result_independent_of_bands_chunks_and_serial_or_parallel(channe
     # the kernel's guard statistics are those of the state it wrote
     assert outs[0][2] == field_stats(*outs[0][0])
     assert not outs[0][0][:, fluid == 0].any()  # solids stay 0
+
+
+@pytest.mark.parametrize("kernel", ["fd_advance_kernel_serial", "fd_advance_kernel"])
+def test_bands_shorter_than_two_blocks_are_refused(kernel):
+    # a trapezoid keeps its edge rows up to step K - 1, so it needs 2 K rows
+    ny, nx, k = 12, 8, 4
+    u = np.ones((3, ny, nx))
+    fl = _fd.padded_fluid(np.ones((ny, nx), np.uint8), False)
+    ring, hring, edge, stats = _fd.scratch(2, k, nx)
+    args = (u, u * 0, np.zeros_like(u), np.zeros_like(u), fl, _fd.plain_rows(fl), False,
+            _fd.band_starts(ny, 2), k, _fd.scheme_table(k, True, 0.01), np.full(12, 0.5),
+            None, None, 0.5, np.zeros(1), np.array([1.0, 1.0, 0.01, 0.0]), None, ring, hring,
+            edge, stats)
+    with pytest.raises(ValueError, match="at least 2 \\* nsteps rows"):
+        getattr(_fd_kernels, kernel)(*args)
+    # 3 steps fit bands of 6 rows
+    getattr(_fd_kernels, kernel)(*args[:8], 3, *args[9:])
+    np.testing.assert_array_equal(args[2][0], 1.0)  # no divergence: rho stays 1
+    assert np.ptp(args[2][1]) == 0.0 and args[2][1, 0, 0] != 1.0  # w uniform, relaxing
 
 
 def test_plain_rows_and_padded_mask():
@@ -201,11 +220,11 @@ def test_minimal_variant_computes_what_the_general_one_does():
     outs = []
     for extra in (None, 1):
         u_out, h_out = np.zeros_like(u), np.zeros_like(h)
-        ring, hring, stats = _fd.scratch(1, 3, s.nx)
+        ring, hring, edge, stats = _fd.scratch(1, 3, s.nx)
         _fd_kernels.fd_advance_kernel_serial(
             u, h, u_out, h_out, s._fl, s._plain, True, _fd.band_starts(s.ny, 1), 3,
             _fd.scheme_table(3, False, s.dt), s.coef.scalars, None, extra, s._terms[1],
-            s._terms[2], s._par, None, ring, hring, stats)
+            s._terms[2], s._par, None, ring, hring, edge, stats)
         outs.append((u_out, h_out))
     np.testing.assert_allclose(outs[0][0], outs[1][0], rtol=1e-15, atol=1e-15)
     np.testing.assert_allclose(outs[0][1], outs[1][1], rtol=1e-15, atol=1e-15)
@@ -219,12 +238,13 @@ def test_block_length_fits_the_cache_budget():
         for ny in (16, 64, 128, 512, 4096):
             k = _fd.block_steps(nx, ny)
             assert _fd.BLOCK_MIN <= k <= _fd.BLOCK_MAX
-            ring, hring, _ = _fd.scratch(1, k, nx)
-            assert _fd.scratch_bytes(k, nx) == ring.nbytes + hring.nbytes
-            assert k == _fd.BLOCK_MIN or (ring.nbytes + hring.nbytes <= _fd.SCRATCH_BYTES
-                                          and k * _fd.MARGIN_SHARE <= ny)
+            ring, hring, _, _ = _fd.scratch(1, k, nx)
+            nbytes = ring.nbytes + hring.nbytes
+            assert _fd.scratch_bytes(k, nx) == nbytes
+            assert k == _fd.BLOCK_MIN or (nbytes <= _fd.SCRATCH_BYTES
+                                          and k * _fd.BAND_SHARE <= ny)
             # the largest block within both limits
-            assert (k == _fd.BLOCK_MAX or (k + 1) * _fd.MARGIN_SHARE > ny
+            assert (k == _fd.BLOCK_MAX or (k + 1) * _fd.BAND_SHARE > ny
                     or _fd.scratch_bytes(k + 1, nx) > _fd.SCRATCH_BYTES)
     for nx in (510, 512, 1000):
         stride = _fd.row_stride(nx)
@@ -236,8 +256,7 @@ def test_scratch_and_state_rows_start_on_cache_lines():
         a = _fd.aligned_zeros((3, 4, 16), lead=lead)
         assert a.shape == (3, 4, 16) and a.flags.c_contiguous and not a.any()
         assert (a.ctypes.data + 8 * lead) % _fd.ALIGN == 0
-    ring, hring, _ = _fd.scratch(2, 5, 100)
-    for buf in (ring, hring):  # the first interior column of every row of every band
+    for buf in _fd.scratch(2, 5, 100)[:3]:  # the first interior column of every row of every band
         assert all(row[1:].ctypes.data % _fd.ALIGN == 0 for row in buf.reshape(-1, buf.shape[-1]))
     s = FiniteDifferenceSolver(CASES["periodic-minimal"])
     assert all(u.ctypes.data % _fd.ALIGN == 0 for pair in s._sets for u in pair)
