@@ -233,7 +233,7 @@ def test_minimal_variant_computes_what_the_general_one_does():
 def test_block_length_fits_the_cache_budget():
     assert _fd.block_steps(16, 4096) == _fd.BLOCK_MAX
     assert _fd.block_steps(100_000, 4096) == _fd.BLOCK_MIN
-    assert _fd.block_steps(512, 16) == _fd.BLOCK_MIN  # margins bounded by the rows
+    assert _fd.block_steps(512, 16) == _fd.BLOCK_MIN  # bands of 2 K rows bounded by the rows
     for nx in (256, 512, 1024, 2048, 4096):
         for ny in (16, 64, 128, 512, 4096):
             k = _fd.block_steps(nx, ny)
