@@ -81,21 +81,51 @@ KIN = ("q_a", "q_b", "alpha_slope", "alpha_offset", "beta", "D_T", "lambda1", "l
 _FASTMATH = {"contract"}
 
 
-@numba.njit(cache=True, inline="always")
+def _noalias():
+    """``{"noalias": True}`` for :func:`numba.njit` where numba can take it, else ``{}``.
+
+    numba compiles its own parallel-loop bodies with the compiler flag ``noalias`` (every
+    pointer argument marked LLVM ``noalias``) once it has checked that their arrays do not
+    overlap, but does not offer the flag to ``njit``; this maps the option onto the flag.
+    :func:`_row` can promise it: it reads the rows of step ``lv`` through ``ring`` and
+    writes rows of step ``lv + 1`` through ``rout`` (the same array, never the same
+    rows), and updates the history row in place through one argument. The compiler then
+    drops the run-time overlap checks (about 100 comparisons) it otherwise runs before the
+    vector loop of every row. The results are the same either way, up to which
+    multiply-adds the compiler fuses.
+    """
+    from numba.core import compiler, cpu, options
+
+    if "noalias" not in compiler.Flags.options:
+        return {}
+    if not isinstance(getattr(cpu.CPUTargetOptions, "noalias", None),
+                      options.TargetOptions.Mapping):
+        cpu.CPUTargetOptions.noalias = options.TargetOptions.Mapping("noalias")
+    return {"noalias": True}
+
+
+# Every kernel here uses numpy's error model: no Python exception paths for a division
+# by zero (it gives Inf, which the driver's guard reports). Without those paths numba
+# also drops the reference-count updates of the array arguments of every call, atomic
+# operations on cache lines that the threads share.
+_ERRORS = "numpy"
+
+
+@numba.njit(cache=True, inline="always", error_model=_ERRORS)
 def _ghost4(a, b, c, d, fa, fb, fc, fd, mirror):
     """Four neighbour values under the ghost rule: a solid one (flag 0) reads ``mirror``."""
     return (a if fa else mirror, b if fb else mirror, c if fc else mirror,
             d if fd else mirror)
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, inline="always", error_model=_ERRORS)
 def _solid_zero(a, b, c, fluid):
     """``(a, b, c)``, or zeros in a solid cell."""
     return (a, b, c) if fluid else (0.0, 0.0, 0.0)
 
 
-@numba.njit(cache=True, fastmath=_FASTMATH)
-def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_lin,
+@numba.njit(cache=True, fastmath=_FASTMATH, error_model=_ERRORS, **_noalias())
+def _row(ring, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_lin,
          pressure, par, g):
     """One row of one step: stencil, right-hand side and SBDF2 update.
 
@@ -105,11 +135,12 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
 
     Parameters
     ----------
-    ring : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
-        Ring rows of every step of the band. Step ``lv`` slots ``sa``, ``sb``, ``sc``
-        hold rows j-1, j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and
-        nx + 1 the periodic copies of columns nx and 1. Written: step ``lv + 1``, slot
-        ``sb`` (columns 0..nx + 1).
+    ring, rout : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
+        The ring rows of every step of the tile, passed twice (see :func:`_noalias`):
+        read through ``ring``, step ``lv`` slots ``sa``, ``sb``, ``sc`` hold rows j-1, j,
+        j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and nx + 1 the periodic
+        copies of columns nx and 1; written through ``rout``: step ``lv + 1``, slot ``sb``
+        (columns 0..nx + 1).
     fl : (ny + 2, nx + 2) uint8 ndarray or None
         Padded fluid mask (rows j..j + 2 are the fluid rows j-1..j+1); None when the
         stencil of row j is all fluid.
@@ -241,15 +272,15 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         hring[hs, 0, 0, i] = b0
         hring[hs, 0, 1, i] = b1
         hring[hs, 0, 2, i] = b2
-        ring[out, sb, 0, i] = a0
-        ring[out, sb, 1, i] = a1
-        ring[out, sb, 2, i] = a2
+        rout[out, sb, 0, i] = a0
+        rout[out, sb, 1, i] = a1
+        rout[out, sb, 2, i] = a2
     for c in range(3):  # periodic copies in x
-        ring[out, sb, c, 0] = ring[out, sb, c, nx]
-        ring[out, sb, c, nx + 1] = ring[out, sb, c, 1]
+        rout[out, sb, c, 0] = rout[out, sb, c, nx]
+        rout[out, sb, c, nx + 1] = rout[out, sb, c, 1]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model=_ERRORS)
 def _load_row(src, j, dst, a, b):
     """Copy ``src[:, j, :]`` into ``dst[a, b, :, 1:nx+1]``, with the periodic copies in
     columns 0 and nx + 1."""
@@ -261,7 +292,7 @@ def _load_row(src, j, dst, a, b):
         dst[a, b, c, nx + 1] = src[c, j, 0]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model=_ERRORS)
 def _store_row(src, a, b, dst, j):
     """Copy ``src[a, b, :, 1:nx+1]`` into ``dst[:, j, :]``."""
     nx = dst.shape[2]
@@ -270,7 +301,7 @@ def _store_row(src, a, b, dst, j):
             dst[c, j, i] = src[a, b, c, i + 1]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model=_ERRORS)
 def _copy_row(src, a, b, dst, c, d):
     """Copy ``src[a, b]`` into ``dst[c, d]`` (rows of ``(3, stride)``, periodic copies
     included)."""
@@ -279,7 +310,7 @@ def _copy_row(src, a, b, dst, c, d):
             dst[c, d, f, i] = src[a, b, f, i]
 
 
-@numba.njit(cache=True, inline="always")
+@numba.njit(cache=True, inline="always", error_model=_ERRORS)
 def _held(tri, lo, hi, wall_lo, wall_hi, s, k):
     """Rows ``[a, z)`` a tile holds at level (step) ``s``.
 
@@ -293,7 +324,7 @@ def _held(tri, lo, hi, wall_lo, wall_hi, s, k):
     return (lo if wall_lo else lo + s), (hi if wall_hi else hi - s)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model=_ERRORS)
 def _tile(tri, lo, hi, wall_lo, wall_hi, e_lo, e_hi, u_in, h_in, u_out, h_out, fl, plain,
           nsteps, scheme, cs, kin, extra, p_lin, pressure, par, noise, ring, hring, edge,
           stats):
@@ -346,10 +377,10 @@ def _tile(tri, lo, hi, wall_lo, wall_hi, e_lo, e_hi, u_in, h_in, u_out, h_out, f
                     # step s-1 were taken earlier in this sweep) sit in slots (r-1..r+1) % ns
                     sa, sc = (r - 1) % ns, (r + 1) % ns
                     if plain[j]:
-                        _row(ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
+                        _row(ring, ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
                              extra, p_lin, pressure, par, scheme)
                     else:
-                        _row(ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
+                        _row(ring, ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
                              extra, p_lin, pressure, par, scheme)
                 if not tri and s < k:  # edge rows for the triangles
                     if not wall_hi and r >= hi - s - 2:
@@ -373,7 +404,7 @@ def _tile(tri, lo, hi, wall_lo, wall_hi, e_lo, e_hi, u_in, h_in, u_out, h_out, f
     stats[2] = w2max
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, error_model=_ERRORS)
 def check_bands(starts, nsteps, channel):
     """Raise unless every band has at least ``2 nsteps`` rows (the trapezoids must keep
     their edge rows up to step K - 1); a channel of one band has no edge."""
@@ -385,7 +416,7 @@ def check_bands(starts, nsteps, channel):
             raise ValueError("finite-difference bands must have at least 2 * nsteps rows")
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True, parallel=True, error_model=_ERRORS)
 def fd_advance_kernel(u_in, h_in, u_out, h_out, fl, plain, channel, starts, nsteps, scheme,
                       cs, kin, extra, p_lin, pressure, par, noise, ring, hring, edge, stats):
     """Advance the masked-grid state ``nsteps`` explicit SBDF2 steps (tiles in parallel).
