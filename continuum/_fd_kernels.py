@@ -81,29 +81,6 @@ KIN = ("q_a", "q_b", "alpha_slope", "alpha_offset", "beta", "D_T", "lambda1", "l
 _FASTMATH = {"contract"}
 
 
-def _noalias():
-    """``{"noalias": True}`` for :func:`numba.njit` where numba can take it, else ``{}``.
-
-    numba compiles its own parallel-loop bodies with the compiler flag ``noalias`` (every
-    pointer argument marked LLVM ``noalias``) once it has checked that their arrays do not
-    overlap, but does not offer the flag to ``njit``; this maps the option onto the flag.
-    :func:`_row` can promise it: it reads the rows of step ``lv`` through ``ring`` and
-    writes rows of step ``lv + 1`` through ``rout`` (the same array, never the same
-    rows), and updates the history row in place through one argument. The compiler then
-    drops the run-time overlap checks (about 100 comparisons) it otherwise runs before the
-    vector loop of every row. The results are the same either way, up to which
-    multiply-adds the compiler fuses.
-    """
-    from numba.core import compiler, cpu, options
-
-    if "noalias" not in compiler.Flags.options:
-        return {}
-    if not isinstance(getattr(cpu.CPUTargetOptions, "noalias", None),
-                      options.TargetOptions.Mapping):
-        cpu.CPUTargetOptions.noalias = options.TargetOptions.Mapping("noalias")
-    return {"noalias": True}
-
-
 # Every kernel here uses numpy's error model: no Python exception paths for a division
 # by zero (it gives Inf, which the driver's guard reports). Without those paths numba
 # also drops the reference-count updates of the array arguments of every call, atomic
@@ -124,8 +101,8 @@ def _solid_zero(a, b, c, fluid):
     return (a, b, c) if fluid else (0.0, 0.0, 0.0)
 
 
-@numba.njit(cache=True, fastmath=_FASTMATH, error_model=_ERRORS, **_noalias())
-def _row(ring, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_lin,
+@numba.njit(cache=True, fastmath=_FASTMATH, error_model=_ERRORS)
+def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_lin,
          pressure, par, g):
     """One row of one step: stencil, right-hand side and SBDF2 update.
 
@@ -135,12 +112,11 @@ def _row(ring, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra
 
     Parameters
     ----------
-    ring, rout : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
-        The ring rows of every step of the tile, passed twice (see :func:`_noalias`):
-        read through ``ring``, step ``lv`` slots ``sa``, ``sb``, ``sc`` hold rows j-1, j,
-        j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and nx + 1 the periodic
-        copies of columns nx and 1; written through ``rout``: step ``lv + 1``, slot ``sb``
-        (columns 0..nx + 1).
+    ring : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
+        Ring rows of every step of the band. Step ``lv`` slots ``sa``, ``sb``, ``sc``
+        hold rows j-1, j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and
+        nx + 1 the periodic copies of columns nx and 1. Written: step ``lv + 1``, slot
+        ``sb`` (columns 0..nx + 1).
     fl : (ny + 2, nx + 2) uint8 ndarray or None
         Padded fluid mask (rows j..j + 2 are the fluid rows j-1..j+1); None when the
         stencil of row j is all fluid.
@@ -272,12 +248,12 @@ def _row(ring, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra
         hring[hs, 0, 0, i] = b0
         hring[hs, 0, 1, i] = b1
         hring[hs, 0, 2, i] = b2
-        rout[out, sb, 0, i] = a0
-        rout[out, sb, 1, i] = a1
-        rout[out, sb, 2, i] = a2
+        ring[out, sb, 0, i] = a0
+        ring[out, sb, 1, i] = a1
+        ring[out, sb, 2, i] = a2
     for c in range(3):  # periodic copies in x
-        rout[out, sb, c, 0] = rout[out, sb, c, nx]
-        rout[out, sb, c, nx + 1] = rout[out, sb, c, 1]
+        ring[out, sb, c, 0] = ring[out, sb, c, nx]
+        ring[out, sb, c, nx + 1] = ring[out, sb, c, 1]
 
 
 @numba.njit(cache=True, error_model=_ERRORS)
@@ -377,10 +353,10 @@ def _tile(tri, lo, hi, wall_lo, wall_hi, e_lo, e_hi, u_in, h_in, u_out, h_out, f
                     # step s-1 were taken earlier in this sweep) sit in slots (r-1..r+1) % ns
                     sa, sc = (r - 1) % ns, (r + 1) % ns
                     if plain[j]:
-                        _row(ring, ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
+                        _row(ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
                              extra, p_lin, pressure, par, scheme)
                     else:
-                        _row(ring, ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
+                        _row(ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
                              extra, p_lin, pressure, par, scheme)
                 if not tri and s < k:  # edge rows for the triangles
                     if not wall_hi and r >= hi - s - 2:

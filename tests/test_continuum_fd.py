@@ -303,3 +303,37 @@ def test_rhs_on_rectangular_cells_converges_at_second_order(coefficients):
     order = np.log2(errors[0] / errors[1])
     assert (errors[1] < 1e-4).all()
     assert (order > 1.9).all() and (order < 2.1).all()
+
+
+_HASH_RUN = """
+import hashlib, numba, numpy as np
+import crossflock as cf
+from crossflock.continuum import FiniteDifferenceSolver
+numba.set_num_threads(2)
+cfg = cf.load_config({
+    "domain": {"size": [256.0, 128.0]}, "model": {"density": 1.0, "speed": 0.5},
+    "run": {"duration": 1.0, "sample_every": 1.0, "seed": 4},
+    "continuum": {"grid": [256, 128], "dt": 0.05, "method": "finite_difference",
+                  "initial_noise": 0.1,
+                  "coefficients": {"alpha": 1.0, "beta": 1.0, "pressure": [0.5], "D_T": 0.1}},
+})
+s = FiniteDifferenceSolver(cfg, workers=2)
+s.advance(40)
+print(hashlib.sha1(s._u.tobytes()).hexdigest())
+"""
+
+
+@pytest.mark.slow
+def test_fresh_and_cached_compilation_give_the_same_numbers(tmp_path):
+    # the numbers of a run must not depend on whether numba compiled the kernels in this
+    # process or loaded them from its cache (a first run and a second run on one machine);
+    # marking the row kernel's arguments noalias broke this once, by round-off
+    import os
+    import subprocess
+    import sys
+
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "numba"), NUMBA_NUM_THREADS="2")
+    hashes = [subprocess.run([sys.executable, "-c", _HASH_RUN], env=env, check=True,
+                             capture_output=True, text=True).stdout.strip()
+              for _ in range(2)]
+    assert len(hashes[0]) == 40 and hashes[0] == hashes[1]
