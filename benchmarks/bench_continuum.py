@@ -7,7 +7,10 @@ same grid and dt. The finite-difference solver's first step is forward Euler of 
 discretisation, so the two are checked to agree to round-off before timing.
 
 Figures (medians over rounds; each round times every path once, so a round's ratios see
-one machine state): grid-point-updates per second and the ratio to the reference for
+one machine state; each path runs whole calls for at least ``--min-time`` seconds per round,
+as timeit's autorange does, so each is timed with its own data in the caches: a single
+blocked call right after the reference would mostly time reloading its state and rings):
+grid-point-updates per second and the ratio to the reference for
 
 * finite_difference ``step()``: one SBDF2 step per pass over memory;
 * finite_difference ``advance(K)``: K steps per pass (temporal blocking, K from
@@ -16,7 +19,7 @@ one machine state): grid-point-updates per second and the ratio to the reference
 
 plus the machine load average and the peak RSS.
 
-Usage: python benchmarks/bench_continuum.py [--n 512] [--repeats 7] [--steps 10]
+Usage: python benchmarks/bench_continuum.py [--n 512] [--repeats 7] [--min-time 0.2]
        [--threads 1 2]
 """
 
@@ -78,28 +81,33 @@ class NumpyReference:
         self.wy = wy + DT * dwy
 
 
-def timed(step, steps, per_call=1):
-    """Seconds per step of ``steps`` calls of ``step`` (each advancing ``per_call``)."""
+def timed(step, min_time, per_call=1):
+    """Seconds per step of whole calls of ``step`` (each advancing ``per_call`` steps),
+    called until at least ``min_time`` seconds have passed."""
+    calls = 0
     t0 = time.perf_counter()
-    for _ in range(steps):
+    while True:
         step()
-    return (time.perf_counter() - t0) / (steps * per_call)
+        calls += 1
+        elapsed = time.perf_counter() - t0
+        if elapsed >= min_time:
+            return elapsed / (calls * per_call)
 
 
-def interleaved(paths, repeats):
+def interleaved(paths, repeats, min_time):
     """Per path, the list of seconds per step over ``repeats`` rounds.
 
-    ``paths``: name -> (callable, calls per timing, steps per call). Each round times every
-    path once, one after the other, so that the ratios of a round see the same machine
-    state: on a shared machine the memory-bound reference alone drifts by a factor 1.5
-    within minutes.
+    ``paths``: name -> (callable, steps per call). Each round times every path once
+    (for at least ``min_time`` seconds), one after the other, so that the ratios of a
+    round see the same machine state: on a shared machine the memory-bound reference
+    alone drifts by a factor 1.5 within minutes.
     """
     for path in paths.values():
         path[0]()  # warm-up (compilation, caches)
     out = {name: [] for name in paths}
     for _ in range(repeats):
-        for name, (step, calls, per_call) in paths.items():
-            out[name].append(timed(step, calls, per_call))
+        for name, (step, per_call) in paths.items():
+            out[name].append(timed(step, min_time, per_call))
     return out
 
 
@@ -149,7 +157,8 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--n", type=int, default=512)
     ap.add_argument("--repeats", type=int, default=7)
-    ap.add_argument("--steps", type=int, default=10)
+    ap.add_argument("--min-time", type=float, default=0.2,
+                    help="seconds of whole calls per path and round (default 0.2)")
     ap.add_argument("--threads", type=int, nargs="*", default=None,
                     help="numba threads / FFT workers to try (default: 1 and all)")
     args = ap.parse_args(argv)
@@ -167,15 +176,15 @@ def main(argv=None):
         ref = NumpyReference(*fd.fields(), fd.dx, V0)
         k = fd.block
         times = interleaved({
-            "ref": (ref.step, args.steps, 1),
-            "step": (fd.step, args.steps, 1),
-            "advance": (lambda fd=fd, k=k: fd.advance(k), max(1, 4 * args.steps // k), k),
-            "spectral": (sp.step, args.steps, 1),
-        }, args.repeats)
-        share = fft_share(sp, args.steps, args.repeats)
+            "ref": (ref.step, 1),
+            "step": (fd.step, 1),
+            "advance": (lambda fd=fd, k=k: fd.advance(k), k),
+            "spectral": (sp.step, 1),
+        }, args.repeats, args.min_time)
+        share = fft_share(sp, 10, args.repeats)
         print(f"grid {n}x{n}, dt {DT}, numba threads {nthreads}, FFT workers "
-              f"{sp.workers}, {args.repeats} interleaved rounds (medians), load average "
-              f"{os.getloadavg()[0]:.2f}")
+              f"{sp.workers}, {args.repeats} interleaved rounds of >= {args.min_time} s per "
+              f"path (medians), load average {os.getloadavg()[0]:.2f}")
         rows = (("numpy np.roll reference (Euler)", "ref"),
                 ("finite_difference step()", "step"),
                 (f"finite_difference advance({k})", "advance"),

@@ -29,9 +29,10 @@ SERIAL_BELOW = 128 * 256
 # the 2 K rows a band needs fit the grid. Measured at 512 x 512 on the 2-core machine
 # (512 KiB L2 per core, shared L3): the state's memory traffic falls as 1/K and outweighs
 # the rings spilling from L2 to L3; K = 20-40 were within a few percent of each other and
-# 6-10% faster than K = 14 (with the split tiling, K = 24-64 within noise).
-SCRATCH_BYTES = 3 * 1024 * 1024
-BLOCK_MIN, BLOCK_MAX = 4, 32
+# 6-10% faster than K = 14. With the split tiling and the overlap-free row kernel,
+# interleaved in one process: K = 48 and 64 4% faster than K = 32, K = 40 2%.
+SCRATCH_BYTES = 17 * 256 * 1024  # 4.25 MiB: K = 48 at 512 wide
+BLOCK_MIN, BLOCK_MAX = 4, 48
 BAND_SHARE = 8
 # Rows per step in each sweep of the wavefront (see _fd_kernels._tile): a step's input
 # rows are then reused from the cache for ROW_CHUNK rows. 4 measured 7% faster than 1 at

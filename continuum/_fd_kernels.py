@@ -62,6 +62,7 @@ import numpy as np
 from numba import prange
 
 from . import _terms
+from ._fma import fmadd
 from ._guard import field_stats
 
 __all__ = ["fd_advance_kernel", "fd_advance_kernel_serial", "PAR", "KIN"]
@@ -75,10 +76,38 @@ KIN = ("q_a", "q_b", "alpha_slope", "alpha_offset", "beta", "D_T", "lambda1", "l
 # Optional inputs are passed as None when absent (no noise, no history for a bare
 # right-hand side, no fluid rows for an all-fluid row, no kinetic form, only the minimal
 # terms): numba compiles a separate version per combination with the unused branches
-# removed, which keeps the inner loop free of tests so that it vectorizes. Fused
-# multiply-adds are allowed ("contract"); nothing else of fast-math, so NaN and Inf still
-# propagate to the driver's guard.
-_FASTMATH = {"contract"}
+# removed, which keeps the inner loop free of tests so that it vectorizes. No fast-math
+# at all: NaN and Inf propagate to the driver's guard, and the compiler may not fuse
+# multiply-adds on its own; the fused ones are written out (``fmadd``, see ._fma), so
+# the source fixes every rounding.
+
+
+def _noalias():
+    """``{"noalias": True}`` for :func:`numba.njit` where numba can take it, else ``{}``.
+
+    numba compiles its own parallel-loop bodies with the compiler flag ``noalias`` (every
+    pointer argument marked LLVM ``noalias``) once it has checked that their arrays do not
+    overlap, but does not offer the flag to ``njit``; this maps the option onto the flag.
+    :func:`_row` can promise it: it reads the rows of step ``lv`` through ``ring`` and
+    ``ringx`` and writes rows of step ``lv + 1`` through ``rout`` (the same array, never
+    the same rows), and updates the history row in place through one argument. The
+    compiler then drops the run-time overlap checks (about 100 comparisons) it otherwise
+    runs before the vector loop of every row. The neighbours i - 1, i + 1 are read through
+    their own argument ``ringx``: read through ``ring``, the compiler, now sure that no
+    store touches them, reuses each loaded vector as the next one's neighbour with
+    shuffles, which costs more than the loads it saves. Measured at 512 x 512 on the
+    2-core machine, interleaved in one process: 8-9% faster ``advance`` than overlap
+    checks before every row. The results are the same with or without the flag: no
+    rounding is left to the compiler (see ``_fma``).
+    """
+    from numba.core import compiler, cpu, options
+
+    if "noalias" not in compiler.Flags.options:
+        return {}
+    if not isinstance(getattr(cpu.CPUTargetOptions, "noalias", None),
+                      options.TargetOptions.Mapping):
+        cpu.CPUTargetOptions.noalias = options.TargetOptions.Mapping("noalias")
+    return {"noalias": True}
 
 
 # Every kernel here uses numpy's error model: no Python exception paths for a division
@@ -101,9 +130,9 @@ def _solid_zero(a, b, c, fluid):
     return (a, b, c) if fluid else (0.0, 0.0, 0.0)
 
 
-@numba.njit(cache=True, fastmath=_FASTMATH, error_model=_ERRORS)
-def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_lin,
-         pressure, par, g):
+@numba.njit(cache=True, error_model=_ERRORS, **_noalias())
+def _row(ring, ringx, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra,
+         p_lin, pressure, par, g):
     """One row of one step: stencil, right-hand side and SBDF2 update.
 
     Whole arrays and indices are passed rather than row views: a view costs a reference
@@ -112,11 +141,13 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
 
     Parameters
     ----------
-    ring : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
-        Ring rows of every step of the band. Step ``lv`` slots ``sa``, ``sb``, ``sc``
-        hold rows j-1, j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and
-        nx + 1 the periodic copies of columns nx and 1. Written: step ``lv + 1``, slot
-        ``sb`` (columns 0..nx + 1).
+    ring, ringx, rout : (>= nsteps + 1, nslots, 3, stride) float64 ndarray
+        The ring rows of every step of the tile, passed three times (see
+        :func:`_noalias`). Read: step ``lv`` slots ``sa``, ``sb``, ``sc`` hold rows j-1,
+        j, j+1 as ``(rho, w_x, w_y)``, columns 1..nx, with columns 0 and nx + 1 the
+        periodic copies of columns nx and 1; column i through ``ring``, columns i +- 1
+        through ``ringx``. Written through ``rout``: step ``lv + 1``, slot ``sb``
+        (columns 0..nx + 1).
     fl : (ny + 2, nx + 2) uint8 ndarray or None
         Padded fluid mask (rows j..j + 2 are the fluid rows j-1..j+1); None when the
         stencil of row j is all fluid.
@@ -174,11 +205,11 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         r = ring[lv, sb, 0, i]
         ux = ring[lv, sb, 1, i]
         uy = ring[lv, sb, 2, i]
-        rE, rW = ring[lv, sb, 0, i + 1], ring[lv, sb, 0, i - 1]
+        rE, rW = ringx[lv, sb, 0, i + 1], ringx[lv, sb, 0, i - 1]
         rN, rS = ring[lv, sc, 0, i], ring[lv, sa, 0, i]
-        xE, xW = ring[lv, sb, 1, i + 1], ring[lv, sb, 1, i - 1]
+        xE, xW = ringx[lv, sb, 1, i + 1], ringx[lv, sb, 1, i - 1]
         xN, xS = ring[lv, sc, 1, i], ring[lv, sa, 1, i]
-        yE, yW = ring[lv, sb, 2, i + 1], ring[lv, sb, 2, i - 1]
+        yE, yW = ringx[lv, sb, 2, i + 1], ringx[lv, sb, 2, i - 1]
         yN, yS = ring[lv, sc, 2, i], ring[lv, sa, 2, i]
         if fl is not None:  # ghost rule: rho mirrored, w mirrored with a sign change
             fE, fW, fN, fS = fl[j + 1, i + 1], fl[j + 1, i - 1], fl[j + 2, i], fl[j, i]
@@ -186,22 +217,16 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
             xE, xW, xN, xS = _ghost4(xE, xW, xN, xS, fE, fW, fN, fS, -ux)
             yE, yW, yN, yS = _ghost4(yE, yW, yN, yS, fE, fW, fN, fS, -uy)
         # second differences (unscaled): exact zeros on a uniform field
-        ux2, uy2 = ux + ux, uy + uy
-        sxx_x, syy_x = xE + xW - ux2, xN + xS - ux2
-        sxx_y, syy_y = yE + yW - uy2, yN + yS - uy2
+        sxx_x, syy_x = fmadd(-2.0, ux, xE + xW), fmadd(-2.0, ux, xN + xS)
+        sxx_y, syy_y = fmadd(-2.0, uy, yE + yW), fmadd(-2.0, uy, yN + yS)
         if kin is None:
-            alpha = alpha_c + alpha_rho * r
+            alpha = fmadd(alpha_rho, r, alpha_c)
             beta, lam1, lam2, lam3 = beta_t, lam1_t, lam2_t, lam3_t
-            d_t = 1.0  # folded into the Laplacian
-            lapx = sxx_x * lap_x + syy_x * lap_y
-            lapy = sxx_y * lap_x + syy_y * lap_y
         else:  # Bertin-Droz-Gregoire coefficients at the local density
             rp = max(r, 0.0)
-            q = 1.0 / (q_a + q_b * rp)
-            alpha = rp * a_slope + a_off
+            q = 1.0 / fmadd(q_b, rp, q_a)
+            alpha = fmadd(rp, a_slope, a_off)
             beta, d_t, lam1, lam2, lam3 = q * k_beta, q * k_dt, q * k_l1, q * k_l2, q * k_l3
-            lapx = sxx_x * idx2 + syy_x * idy2
-            lapy = sxx_y * idx2 + syy_y * idy2
         hxx_x = hyy_x = hxx_y = hyy_y = hxy_x = hxy_y = lap_r = 0.0
         gxy = gyx = 0.0
         if extra is None:  # constants: the other terms fold away at compile time
@@ -209,38 +234,47 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
             slope = vc = 1.0  # folded into grad rho and div w
             dxr, dyr = (rE - rW) * grad_x, (rN - rS) * grad_y
             gxx, gyy = (xE - xW) * div_x, (yN - yS) * div_y
+            div_w = fmadd(xE - xW, div_x, gyy)  # gxx + gyy, one rounding
         else:
             c_db, c_d2, c_drho, vc = d_b, d_2, d_rho, v0
             slope = _terms.pressure_slope(r - rho0, pressure)
             dxr, dyr = (rE - rW) * i2dx, (rN - rS) * i2dy
             gxx, gyy = (xE - xW) * i2dx, (yN - yS) * i2dy
+            div_w = gxx + gyy
             gyx, gxy = (xN - xS) * i2dy, (yE - yW) * i2dx
             hxx_x, hyy_x, hxx_y, hyy_y = sxx_x * idx2, syy_x * idy2, sxx_y * idx2, syy_y * idy2
             lap_r = (rE + rW - 2.0 * r) * idx2 + (rN + rS - 2.0 * r) * idy2
-            xNE, xNW = ring[lv, sc, 1, i + 1], ring[lv, sc, 1, i - 1]
-            xSE, xSW = ring[lv, sa, 1, i + 1], ring[lv, sa, 1, i - 1]
-            yNE, yNW = ring[lv, sc, 2, i + 1], ring[lv, sc, 2, i - 1]
-            ySE, ySW = ring[lv, sa, 2, i + 1], ring[lv, sa, 2, i - 1]
+            xNE, xNW = ringx[lv, sc, 1, i + 1], ringx[lv, sc, 1, i - 1]
+            xSE, xSW = ringx[lv, sa, 1, i + 1], ringx[lv, sa, 1, i - 1]
+            yNE, yNW = ringx[lv, sc, 2, i + 1], ringx[lv, sc, 2, i - 1]
+            ySE, ySW = ringx[lv, sa, 2, i + 1], ringx[lv, sa, 2, i - 1]
             if fl is not None:
                 fNE, fNW, fSE, fSW = fl[j + 2, i + 1], fl[j + 2, i - 1], fl[j, i + 1], fl[j, i - 1]
                 xNE, xNW, xSE, xSW = _ghost4(xNE, xNW, xSE, xSW, fNE, fNW, fSE, fSW, -ux)
                 yNE, yNW, ySE, ySW = _ghost4(yNE, yNW, ySE, ySW, fNE, fNW, fSE, fSW, -uy)
             hxy_x = (xNE - xNW - xSE + xSW) * i4dxdy
             hxy_y = (yNE - yNW - ySE + ySW) * i4dxdy
+        # every term but D_T lap(w), which is added below with fused multiply-adds
         fx, fy = _terms.momentum(
-            ux, uy, dxr, dyr, gxx, gxy, gyx, gyy, lapx, lapy,
+            ux, uy, dxr, dyr, gxx, gxy, gyx, gyy, 0.0, 0.0,
             hxx_x, hxy_x, hyy_x, hxx_y, hxy_y, hyy_y,
-            alpha, beta, lam1, lam2, lam3, d_t, c_db, c_d2, slope)
-        n0 = _terms.continuity(gxx + gyy, lap_r, vc, c_drho)
-        a0 = r + c_s * (r + hring[hs, 0, 0, i]) + c_n * n0
-        a1 = ux + c_s * (ux + hring[hs, 0, 1, i]) + c_n * fx
-        a2 = uy + c_s * (uy + hring[hs, 0, 2, i]) + c_n * fy
+            alpha, beta, lam1, lam2, lam3, 0.0, c_db, c_d2, slope)
+        if kin is None:  # D_T lap(w), D_T in the weights
+            fx = fmadd(sxx_x, lap_x, fmadd(syy_x, lap_y, fx))
+            fy = fmadd(sxx_y, lap_x, fmadd(syy_y, lap_y, fy))
+        else:
+            fx = fmadd(d_t, fmadd(sxx_x, idx2, syy_x * idy2), fx)
+            fy = fmadd(d_t, fmadd(sxx_y, idx2, syy_y * idy2), fy)
+        n0 = _terms.continuity(div_w, lap_r, vc, c_drho)
+        a0 = fmadd(c_n, n0, fmadd(c_s, r + hring[hs, 0, 0, i], r))
+        a1 = fmadd(c_n, fx, fmadd(c_s, ux + hring[hs, 0, 1, i], ux))
+        a2 = fmadd(c_n, fy, fmadd(c_s, uy + hring[hs, 0, 2, i], uy))
         if noise is not None:
-            a1 += c_xi * noise[lv, 0, j, i - 1]
-            a2 += c_xi * noise[lv, 1, j, i - 1]
-        b0 = -r - dt2 * n0
-        b1 = -ux - dt2 * fx
-        b2 = -uy - dt2 * fy
+            a1 = fmadd(c_xi, noise[lv, 0, j, i - 1], a1)
+            a2 = fmadd(c_xi, noise[lv, 1, j, i - 1], a2)
+        b0 = fmadd(-dt2, n0, -r)
+        b1 = fmadd(-dt2, fx, -ux)
+        b2 = fmadd(-dt2, fy, -uy)
         if fl is not None:  # solid cells stay 0
             fc = fl[j + 1, i] != 0
             a0, a1, a2 = _solid_zero(a0, a1, a2, fc)
@@ -248,12 +282,12 @@ def _row(ring, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin, extra, p_li
         hring[hs, 0, 0, i] = b0
         hring[hs, 0, 1, i] = b1
         hring[hs, 0, 2, i] = b2
-        ring[out, sb, 0, i] = a0
-        ring[out, sb, 1, i] = a1
-        ring[out, sb, 2, i] = a2
+        rout[out, sb, 0, i] = a0
+        rout[out, sb, 1, i] = a1
+        rout[out, sb, 2, i] = a2
     for c in range(3):  # periodic copies in x
-        ring[out, sb, c, 0] = ring[out, sb, c, nx]
-        ring[out, sb, c, nx + 1] = ring[out, sb, c, 1]
+        rout[out, sb, c, 0] = rout[out, sb, c, nx]
+        rout[out, sb, c, nx + 1] = rout[out, sb, c, 1]
 
 
 @numba.njit(cache=True, error_model=_ERRORS)
@@ -353,11 +387,11 @@ def _tile(tri, lo, hi, wall_lo, wall_hi, e_lo, e_hi, u_in, h_in, u_out, h_out, f
                     # step s-1 were taken earlier in this sweep) sit in slots (r-1..r+1) % ns
                     sa, sc = (r - 1) % ns, (r + 1) % ns
                     if plain[j]:
-                        _row(ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx, cs, kin,
-                             extra, p_lin, pressure, par, scheme)
+                        _row(ring, ring, ring, s - 1, sa, sb, sc, None, j, hring, hs, noise, nx,
+                             cs, kin, extra, p_lin, pressure, par, scheme)
                     else:
-                        _row(ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin,
-                             extra, p_lin, pressure, par, scheme)
+                        _row(ring, ring, ring, s - 1, sa, sb, sc, fl, j, hring, hs, noise, nx,
+                             cs, kin, extra, p_lin, pressure, par, scheme)
                 if not tri and s < k:  # edge rows for the triangles
                     if not wall_hi and r >= hi - s - 2:
                         _copy_row(ring, s, sb, eh, s, r - (hi - s - 2))

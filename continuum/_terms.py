@@ -17,7 +17,10 @@ from __future__ import annotations
 
 import numba
 
+from ._fma import fmadd
+
 __all__ = [
+    "alignment_rate",
     "alignment",
     "pressure_slope",
     "pressure_force",
@@ -37,9 +40,15 @@ _jit = numba.njit(cache=True, inline="always")
 
 
 @_jit
+def alignment_rate(wx, wy, alpha, beta):
+    """The bracket ``alpha(rho) - beta |w|^2`` of the alignment term."""
+    return fmadd(-beta, fmadd(wx, wx, wy * wy), alpha)
+
+
+@_jit
 def alignment(wx, wy, alpha, beta):
     """Alignment ``[alpha(rho) - beta |w|^2] w``; ``alpha`` is the local alpha(rho)."""
-    s = alpha - beta * (wx * wx + wy * wy)
+    s = alignment_rate(wx, wy, alpha, beta)
     return s * wx, s * wy
 
 
@@ -137,10 +146,10 @@ def momentum(wx, wy, dxrho, dyrho, gxx, gxy, gyx, gyy, lapx, lapy,
     coefficients ``lambda1`` ... ``d_2`` must be scalars (they select the terms).
     ``slope`` is P'(rho) from :func:`pressure_slope` (the caller evaluates it: passing
     the coefficient array down to every grid point would cost reference counting).
-    ``lapx, lapy`` serve D_T only: the finite-difference kernel may hand them in already
-    multiplied by a constant D_T, with ``d_t = 1`` (likewise ``dxrho, dyrho`` times P'
-    with ``slope = 1`` in its minimal variant), so a new term uses the second derivatives
-    ``h..`` and the gradients ``g..``, never these.
+    ``lapx, lapy`` serve D_T only: the finite-difference kernel passes ``d_t = 0`` and
+    adds D_T lap(w) itself with fused multiply-adds, and in its minimal variant hands in
+    ``dxrho, dyrho`` already multiplied by P' with ``slope = 1``; so a new term uses the
+    second derivatives ``h..`` and the gradients ``g..``, never these.
 
     Returns
     -------
@@ -149,10 +158,11 @@ def momentum(wx, wy, dxrho, dyrho, gxx, gxy, gyx, gyy, lapx, lapy,
     """
     # Terms whose coefficient is 0 are skipped: the branches are the same at every
     # grid point (well predicted) and save most of the arithmetic of a minimal model.
-    fx, fy = alignment(wx, wy, alpha, beta)
+    # alignment plus pressure, as one multiply-add per component (see ._fma)
     ax, ay = pressure_force(dxrho, dyrho, slope)
-    fx = fx + ax
-    fy = fy + ay
+    s = alignment_rate(wx, wy, alpha, beta)
+    fx = fmadd(s, wx, ax)
+    fy = fmadd(s, wy, ay)
     if lambda1 != 0.0:
         ax, ay = self_advection(wx, wy, gxx, gxy, gyx, gyy, lambda1)
         fx = fx + ax

@@ -1,10 +1,14 @@
 """Term functions of GUIDE section 3 and the two derivative operators behind them."""
 
+from fractions import Fraction
+
+import numba
 import numpy as np
 import pytest
 
 import crossflock as cf
 from crossflock.continuum import FiniteDifferenceSolver, SpectralSolver, terms
+from crossflock.continuum._fma import fmadd
 
 RNG = np.random.default_rng(3)
 
@@ -16,6 +20,33 @@ def test_alignment_fixed_point_and_sign():
     assert fx == pytest.approx(0.0, abs=1e-15) and fy == 0.0
     fx, _ = terms.alignment(0.5 * w, 0.0, 2.0, 3.0)
     assert fx > 0  # grows below the fixed point
+
+
+@numba.njit
+def _fused(a, b, c):
+    return fmadd(a, b, c)
+
+
+def test_fmadd_rounds_once_as_the_ieee_fused_multiply_add():
+    # IEEE 754-2008 fusedMultiplyAdd: the exact a * b + c rounded once. Exact reference:
+    # Python's fractions, and float(Fraction) rounds to nearest, ties to even.
+    a, b, c = RNG.normal(size=(3, 300)) * np.array([[1.0], [1e3], [1e-2]])
+    for x, y, z in zip(a, b, c, strict=True):
+        assert _fused(x, y, z) == float(Fraction(x) * Fraction(y) + Fraction(z))
+    e = 1.0 + 2.0**-30  # e * e - 1 = 2^-29 + 2^-60: two roundings lose the 2^-60
+    assert _fused(e, e, -1.0) == 2.0**-29 + 2.0**-60 != e * e - 1.0
+    # on arrays (the spectral method): numpy's two roundings, bit for bit
+    np.testing.assert_array_equal(_fused(a, b, c), a * b + c)
+
+
+def test_alignment_on_arrays_keeps_numpy_rounding():
+    # the spectral method calls the term functions on arrays: writing the scalar path
+    # with fused multiply-adds must leave its numbers exactly as plain numpy gives them
+    wx, wy, alpha = RNG.normal(size=(3, 40))
+    fx, fy = terms.alignment(wx, wy, alpha, 0.7)
+    s = alpha - 0.7 * (wx * wx + wy * wy)
+    np.testing.assert_array_equal(fx, s * wx)
+    np.testing.assert_array_equal(fy, s * wy)
 
 
 def test_pressure_slope_matches_numpy_polyder():
