@@ -41,6 +41,7 @@ from crossflock.continuum import _spectral as spectral_module
 COEFFS = {"alpha": 1.0, "beta": 1.0, "pressure": [0.5], "D_T": 0.1}
 DT = 0.05
 V0 = 0.5
+FFT_SHARE_STEPS = 10  # spectral steps per round of the FFT-share measurement
 
 
 def config(n, method):
@@ -181,7 +182,7 @@ def main(argv=None):
             "advance": (lambda fd=fd, k=k: fd.advance(k), k),
             "spectral": (sp.step, 1),
         }, args.repeats, args.min_time)
-        share = fft_share(sp, 10, args.repeats)
+        share = fft_share(sp, FFT_SHARE_STEPS, args.repeats)
         print(f"grid {n}x{n}, dt {DT}, numba threads {nthreads}, FFT workers "
               f"{sp.workers}, {args.repeats} interleaved rounds of >= {args.min_time} s per "
               f"path (medians), load average {os.getloadavg()[0]:.2f}")

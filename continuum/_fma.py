@@ -10,8 +10,9 @@ multiply-add is written in the source with :func:`fmadd`, one rounding of the ex
 ``a * b + c`` (IEEE 754-2008 fusedMultiplyAdd), so the source fixes every rounding.
 
 :func:`fmadd` works on scalars inside compiled code (one fused instruction, ``llvm.fma``;
-on an x86-64 CPU with FMA3) and on arrays (``a * b + c``, two roundings, as numpy does),
-so the term functions of :mod:`._terms` keep serving both methods.
+on an x86-64 CPU with FMA3; both methods' kernels call the term functions of
+:mod:`._terms` this way, point by point) and on arrays (``a * b + c``, two roundings, as
+numpy does), so the term functions keep accepting arrays too.
 """
 
 from __future__ import annotations

@@ -256,10 +256,11 @@ def test_block_length_fits_the_cache_budget():
 
 @pytest.mark.parametrize("case", ["periodic-minimal", "disc-full", "channel-disc-kinetic"])
 def test_row_kernel_gives_the_same_bits_without_the_noalias_promise(case):
-    # no rounding is left to the compiler (continuum/_fma.py): compiled without the
-    # noalias promise (so with run-time overlap checks before its vector loop and another
-    # instruction schedule), the row kernel must give the same bits, masked, noisy and
-    # kinetic variants included
+    # compiled without the noalias promise (so with run-time overlap checks before its
+    # vector loop), the row kernel must give the same bits, masked, noisy and kinetic
+    # variants included: catches a row kernel that reads through ring/ringx what it
+    # writes through rout (the promise would then be false) or a rounding left to the
+    # compiler (continuum/_fma.py). The fresh-vs-cached slow test guards whole runs.
     plain = numba.njit(error_model="numpy")(_fd_kernels._row.py_func)
     s = FiniteDifferenceSolver(CASES[case])
     rng = np.random.default_rng(5)

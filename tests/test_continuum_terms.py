@@ -40,8 +40,9 @@ def test_fmadd_rounds_once_as_the_ieee_fused_multiply_add():
 
 
 def test_alignment_on_arrays_keeps_numpy_rounding():
-    # the spectral method calls the term functions on arrays: writing the scalar path
-    # with fused multiply-adds must leave its numbers exactly as plain numpy gives them
+    # the term functions also accept arrays (both kernels call them point by point):
+    # on arrays, the fused multiply-adds of the scalar path must leave plain numpy's
+    # numbers exactly
     wx, wy, alpha = RNG.normal(size=(3, 40))
     fx, fy = terms.alignment(wx, wy, alpha, 0.7)
     s = alpha - 0.7 * (wx * wx + wy * wy)
