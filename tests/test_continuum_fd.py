@@ -249,9 +249,17 @@ def test_block_length_fits_the_cache_budget():
             # the largest block within both limits
             assert (k == _fd.BLOCK_MAX or (k + 1) * _fd.BAND_SHARE > ny
                     or _fd.scratch_bytes(k + 1, nx) > _fd.SCRATCH_BYTES)
-    for nx in (510, 512, 1000):
+    for nx in (254, 256, 500, 510, 512, 1000, 1024, 2040):
         stride = _fd.row_stride(nx)
-        assert stride >= nx + 2 and stride % 8 == 0 and (stride * 8) % 4096 != 0
+        nbytes = stride * 8
+        assert stride >= nx + 2 and stride % 8 == 0
+        assert min(nbytes % 4096, -nbytes % 4096) >= _fd.PAGE_GAP
+        # the shortest such row: one 64-byte step shorter would be too short or too
+        # close to a page multiple
+        shorter = nbytes - 64
+        assert (shorter < 8 * (nx + 2)
+                or min(shorter % 4096, -shorter % 4096) < _fd.PAGE_GAP)
+    assert _fd.row_stride(512) == 528 and _fd.row_stride(256) == 264
 
 
 @pytest.mark.parametrize("case", ["periodic-minimal", "disc-full", "channel-disc-kinetic"])
