@@ -233,8 +233,8 @@ def _row(ring, ringx, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin
             lam1 = lam2 = lam3 = c_db = c_d2 = c_drho = 0.0
             slope = vc = 1.0  # folded into grad rho and div w
             dxr, dyr = (rE - rW) * grad_x, (rN - rS) * grad_y
-            gxx, gyy = (xE - xW) * div_x, (yN - yS) * div_y
-            div_w = fmadd(xE - xW, div_x, gyy)  # gxx + gyy, one rounding
+            gxx = gyy = 0.0  # the velocity gradients serve only the other terms
+            div_w = fmadd(xE - xW, div_x, (yN - yS) * div_y)
         else:
             c_db, c_d2, c_drho, vc = d_b, d_2, d_rho, v0
             slope = _terms.pressure_slope(r - rho0, pressure)
