@@ -228,12 +228,11 @@ def _row(ring, ringx, rout, lv, sa, sb, sc, fl, j, hring, hs, noise, nx, cs, kin
             alpha = fmadd(rp, a_slope, a_off)
             beta, d_t, lam1, lam2, lam3 = q * k_beta, q * k_dt, q * k_l1, q * k_l2, q * k_l3
         hxx_x = hyy_x = hxx_y = hyy_y = hxy_x = hxy_y = lap_r = 0.0
-        gxy = gyx = 0.0
+        gxx = gxy = gyx = gyy = 0.0  # the velocity gradients serve only the other terms
         if extra is None:  # constants: the other terms fold away at compile time
             lam1 = lam2 = lam3 = c_db = c_d2 = c_drho = 0.0
             slope = vc = 1.0  # folded into grad rho and div w
             dxr, dyr = (rE - rW) * grad_x, (rN - rS) * grad_y
-            gxx = gyy = 0.0  # the velocity gradients serve only the other terms
             div_w = fmadd(xE - xW, div_x, (yN - yS) * div_y)
         else:
             c_db, c_d2, c_drho, vc = d_b, d_2, d_rho, v0
